@@ -1,0 +1,269 @@
+//! Evaluation sets on disk: a single `.npy` or an `.npz` archive (stored or
+//! deflated). Opening a set reads only headers and the labels; samples are
+//! streamed in row batches, so memory does not grow with the set's length.
+
+use std::fs::File;
+use std::io::{BufReader, Read, Seek, SeekFrom};
+use std::path::{Path, PathBuf};
+
+use flate2::read::DeflateDecoder;
+use serde::{Deserialize, Serialize};
+
+use super::error::{EngineError, EngineResult};
+use super::npy::{self, Dtype, Header, Scalar};
+
+/// The array that holds labels in an `.npz`; it never feeds a model input.
+pub const LABELS: &str = "labels";
+
+/// One array as a report or an API answer describes it.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct ArrayInfo {
+    /// `None` for the single unnamed array of a plain `.npy` file.
+    pub name: Option<String>,
+    pub dtype: String,
+    pub shape: Vec<usize>,
+}
+
+/// What an upload check learns about a set.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct DatasetInfo {
+    pub samples: usize,
+    pub arrays: Vec<ArrayInfo>,
+    pub has_labels: bool,
+}
+
+/// Where one array's bytes live inside the file.
+#[derive(Debug, Clone)]
+pub(crate) struct Member {
+    pub(crate) name: Option<String>,
+    pub(crate) header: Header,
+    offset: u64,
+    stored_len: u64,
+    deflated: bool,
+}
+
+/// An opened evaluation set: headers checked, labels read.
+#[derive(Debug)]
+pub struct EvalSet {
+    path: PathBuf,
+    members: Vec<Member>,
+    samples: usize,
+    labels: Option<Vec<i64>>,
+}
+
+/// Rows of one array, read front to back.
+pub(crate) struct RowStream {
+    reader: Box<dyn Read + Send>,
+    pub(crate) header: Header,
+}
+
+impl RowStream {
+    pub(crate) fn read(&mut self, rows: usize, buf: &mut Vec<u8>) -> EngineResult<()> {
+        npy::read_rows(&mut self.reader, &self.header, rows, buf)
+    }
+}
+
+fn invalid(msg: impl Into<String>) -> EngineError {
+    EngineError::InvalidDataset(msg.into())
+}
+
+impl EvalSet {
+    pub fn open(path: &Path) -> EngineResult<EvalSet> {
+        let mut file = File::open(path).map_err(EngineError::io("opening the evaluation set"))?;
+        let mut magic = [0u8; 4];
+        let n = file.read(&mut magic).map_err(EngineError::io("reading the evaluation set"))?;
+        let members = match &magic[..n] {
+            [0x93, b'N', b'U', b'M'] => vec![npy_member(path)?],
+            [b'P', b'K', 3, 4] | [b'P', b'K', 5, 6] => npz_members(path)?,
+            _ => return Err(invalid("the evaluation set is neither an .npy array nor an .npz archive")),
+        };
+        let mut set = EvalSet { path: path.to_owned(), members, samples: 0, labels: None };
+        set.samples = set.check_lengths()?;
+        set.labels = set.read_labels()?;
+        Ok(set)
+    }
+
+    fn check_lengths(&self) -> EngineResult<usize> {
+        if self.members.is_empty() {
+            return Err(invalid("the .npz archive holds no arrays"));
+        }
+        let mut samples = None;
+        for m in &self.members {
+            let label = m.name.as_deref().unwrap_or("the array");
+            let Some(&n) = m.header.shape.first() else {
+                return Err(invalid(format!(
+                    "array '{label}' is a scalar: every array needs a first (sample) axis"
+                )));
+            };
+            match samples {
+                None => samples = Some((n, label)),
+                Some((first, first_label)) if first != n => {
+                    return Err(invalid(format!(
+                        "arrays differ in length: '{first_label}' has {first} samples, '{label}' has {n}"
+                    )));
+                }
+                _ => {}
+            }
+        }
+        let (n, _) = samples.expect("at least one member");
+        if n == 0 {
+            return Err(invalid("the evaluation set holds no samples"));
+        }
+        Ok(n)
+    }
+
+    fn read_labels(&self) -> EngineResult<Option<Vec<i64>>> {
+        let Some(ix) = self.members.iter().position(|m| m.name.as_deref() == Some(LABELS)) else {
+            return Ok(None);
+        };
+        let header = &self.members[ix].header;
+        if !header.dtype.is_integer() {
+            return Err(invalid(format!(
+                "'labels' must be an integer array, but it is {}",
+                header.dtype.name()
+            )));
+        }
+        if header.shape.len() != 1 {
+            return Err(invalid(format!(
+                "'labels' must have shape [N], but it has shape {:?}",
+                header.shape
+            )));
+        }
+        let mut stream = self.stream(ix)?;
+        let mut raw = Vec::new();
+        stream.read(self.samples, &mut raw)?;
+        (0..self.samples)
+            .map(|i| match npy::element(&raw, header, i) {
+                Scalar::Int(v) if (0..=i64::MAX as i128).contains(&v) => Ok(v as i64),
+                Scalar::Int(v) => {
+                    Err(invalid(format!("label {v} at sample {i} is negative or too large")))
+                }
+                Scalar::Float(_) => unreachable!("integer dtype checked above"),
+            })
+            .collect::<EngineResult<Vec<_>>>()
+            .map(Some)
+    }
+
+    pub fn samples(&self) -> usize {
+        self.samples
+    }
+
+    pub fn labels(&self) -> Option<&[i64]> {
+        self.labels.as_deref()
+    }
+
+    pub fn info(&self) -> DatasetInfo {
+        DatasetInfo {
+            samples: self.samples,
+            arrays: self
+                .members
+                .iter()
+                .map(|m| ArrayInfo {
+                    name: m.name.clone(),
+                    dtype: m.header.dtype.name().to_string(),
+                    shape: m.header.shape.clone(),
+                })
+                .collect(),
+            has_labels: self.labels.is_some(),
+        }
+    }
+
+    /// The arrays that may feed model inputs (all but `labels`).
+    pub(crate) fn feature_members(&self) -> impl Iterator<Item = (usize, &Member)> {
+        self.members.iter().enumerate().filter(|(_, m)| m.name.as_deref() != Some(LABELS))
+    }
+
+    pub(crate) fn member(&self, ix: usize) -> &Member {
+        &self.members[ix]
+    }
+
+    /// A fresh reader positioned at the first sample of member `ix`.
+    pub(crate) fn stream(&self, ix: usize) -> EngineResult<RowStream> {
+        open_stream(&self.path, &self.members[ix])
+    }
+}
+
+fn open_stream(path: &Path, m: &Member) -> EngineResult<RowStream> {
+    let mut file = File::open(path).map_err(EngineError::io("opening the evaluation set"))?;
+    file.seek(SeekFrom::Start(m.offset)).map_err(EngineError::io("seeking in the set"))?;
+    let raw = BufReader::with_capacity(1 << 16, file.take(m.stored_len));
+    let mut reader: Box<dyn Read + Send> =
+        if m.deflated { Box::new(DeflateDecoder::new(raw)) } else { Box::new(raw) };
+    let header = npy::read_header(&mut reader).map_err(invalid)?;
+    Ok(RowStream { reader, header })
+}
+
+fn npy_member(path: &Path) -> EngineResult<Member> {
+    let len = std::fs::metadata(path).map_err(EngineError::io("reading the set"))?.len();
+    let mut r = BufReader::new(File::open(path).map_err(EngineError::io("opening the set"))?);
+    let header = npy::read_header(&mut r).map_err(invalid)?;
+    check_size(&header, len, None)?;
+    Ok(Member { name: None, header, offset: 0, stored_len: len, deflated: false })
+}
+
+fn npz_members(path: &Path) -> EngineResult<Vec<Member>> {
+    let file = File::open(path).map_err(EngineError::io("opening the set"))?;
+    let mut zip = zip::ZipArchive::new(BufReader::new(file))
+        .map_err(|e| invalid(format!("the .npz archive cannot be read: {e}")))?;
+    let mut members = Vec::with_capacity(zip.len());
+    for i in 0..zip.len() {
+        let entry = zip
+            .by_index_raw(i)
+            .map_err(|e| invalid(format!("the .npz archive cannot be read: {e}")))?;
+        if entry.is_dir() {
+            continue;
+        }
+        let file_name = entry.name().to_string();
+        let Some(name) = file_name.strip_suffix(".npy") else {
+            return Err(invalid(format!("'{file_name}' in the archive is not an .npy array")));
+        };
+        if entry.encrypted() {
+            return Err(invalid(format!("array '{name}' is encrypted")));
+        }
+        let deflated = match entry.compression() {
+            zip::CompressionMethod::Stored => false,
+            zip::CompressionMethod::Deflated => true,
+            other => {
+                return Err(invalid(format!(
+                    "array '{name}' uses {other} compression; save with np.savez or np.savez_compressed"
+                )));
+            }
+        };
+        let member = Member {
+            name: Some(name.to_string()),
+            header: Header { dtype: Dtype::Bool, big_endian: false, shape: vec![] },
+            offset: entry.data_start(),
+            stored_len: entry.compressed_size(),
+            deflated,
+        };
+        let uncompressed = entry.size();
+        members.push((member, uncompressed));
+    }
+    drop(zip);
+    members
+        .into_iter()
+        .map(|(mut member, uncompressed)| {
+            let name = member.name.clone().unwrap_or_default();
+            member.header = open_stream(path, &member)
+                .map_err(|e| invalid(format!("array '{name}': {e}")))?
+                .header;
+            check_size(&member.header, uncompressed, Some(&name))?;
+            Ok(member)
+        })
+        .collect()
+}
+
+/// Refuses arrays whose header promises more data than the file holds, so a
+/// truncated upload fails at once rather than mid-evaluation.
+fn check_size(header: &Header, available: u64, name: Option<&str>) -> EngineResult<()> {
+    let want = header.shape.iter().try_fold(header.dtype.size() as u64, |acc, &d| {
+        acc.checked_mul(d as u64)
+    });
+    match want {
+        Some(w) if w <= available => Ok(()),
+        _ => Err(invalid(format!(
+            "array '{}' is truncated: its header promises more data than the file holds",
+            name.unwrap_or("the array")
+        ))),
+    }
+}

@@ -1,0 +1,245 @@
+//! Fitting an evaluation set to a model's inputs, and feeding it batch by
+//! batch as tract tensors of the input's type.
+//!
+//! Conversions are refused when the dtype cannot carry the values (a float
+//! array into an integer input); narrowing ones (float64 into float32,
+//! int64 into int32) are accepted and checked value by value, so a value that
+//! would change is an error naming its array and sample.
+
+use std::collections::HashMap;
+
+use tract_onnx::prelude::*;
+
+use super::dataset::{EvalSet, RowStream};
+use super::error::{EngineError, EngineResult};
+use super::model::{BatchAxis, Dim, Model, numpy_name};
+use super::npy::{self, Dtype, Header, Scalar};
+
+/// Which array feeds one model input, and how.
+#[derive(Debug, Clone)]
+pub struct InputBinding {
+    pub member: usize,
+    pub array: String,
+    pub target: DatumType,
+    /// The shape of one sample (every axis but the batch axis).
+    pub row_shape: Vec<usize>,
+}
+
+/// How an evaluation set feeds one model: an array per input, and the sizes
+/// its symbolic non-batch axes take from the set.
+#[derive(Debug, Clone)]
+pub struct Binding {
+    pub inputs: Vec<InputBinding>,
+    pub dims: HashMap<String, usize>,
+}
+
+fn mismatch(msg: String) -> EngineError {
+    EngineError::Mismatch(msg)
+}
+
+/// Matches arrays to `model`'s inputs by name (a one-input model takes the
+/// set's single non-label array whatever its name) and checks that each fits.
+pub fn bind(model: &Model, set: &EvalSet, label: &str) -> EngineResult<Binding> {
+    let features: Vec<(usize, Option<&str>)> =
+        set.feature_members().map(|(i, m)| (i, m.name.as_deref())).collect();
+    let inputs = &model.info.inputs;
+    if let BatchAxis::Fixed(b) = model.batch
+        && b != 1
+    {
+        return Err(mismatch(format!(
+            "model '{label}' has its batch axis fixed to {b}; single-stream latency runs one \
+             sample at a time, so export it with a symbolic or unit batch axis"
+        )));
+    }
+    let mut dims = HashMap::new();
+    let mut bound = Vec::with_capacity(inputs.len());
+    for (ix, spec) in inputs.iter().enumerate() {
+        let member = if inputs.len() == 1 && features.len() == 1 {
+            features[0].0
+        } else {
+            features
+                .iter()
+                .find(|(_, name)| *name == Some(spec.name.as_str()))
+                .map(|(i, _)| *i)
+                .ok_or_else(|| {
+                    let names: Vec<&str> = features.iter().filter_map(|(_, n)| *n).collect();
+                    mismatch(format!(
+                        "model '{label}' needs an array named '{}' and the set has none \
+                         (its arrays: {})",
+                        spec.name,
+                        if names.is_empty() { "one unnamed array".into() } else { names.join(", ") }
+                    ))
+                })?
+        };
+        let header = &set.member(member).header;
+        let array = set.member(member).name.clone().unwrap_or_else(|| "the array".into());
+        let target = model.input_types[ix];
+        check_dtype(header.dtype, target, &array, &spec.name)?;
+        if header.shape.len() != spec.shape.len() {
+            return Err(mismatch(format!(
+                "array '{array}' has shape {:?} but input '{}' of model '{label}' has {} axes",
+                header.shape,
+                spec.name,
+                spec.shape.len()
+            )));
+        }
+        for (axis, (want, &have)) in spec.shape.iter().zip(&header.shape).enumerate().skip(1) {
+            let fits = match want {
+                Dim::Fixed(n) => *n == have,
+                Dim::Symbol(s) => *dims.entry(s.clone()).or_insert(have) == have,
+            };
+            if !fits {
+                return Err(mismatch(format!(
+                    "array '{array}' has size {have} on axis {axis}, which does not fit input '{}' \
+                     of model '{label}' (shape {})",
+                    spec.name,
+                    serde_json::to_string(&spec.shape).unwrap_or_default()
+                )));
+            }
+        }
+        bound.push(InputBinding {
+            member,
+            array,
+            target,
+            row_shape: header.shape[1..].to_vec(),
+        });
+    }
+    Ok(Binding { inputs: bound, dims })
+}
+
+fn check_dtype(src: Dtype, target: DatumType, array: &str, input: &str) -> EngineResult<()> {
+    let ok = match target {
+        DatumType::F16 | DatumType::F32 | DatumType::F64 => true,
+        DatumType::Bool => src == Dtype::Bool,
+        _ => !src.is_float(),
+    };
+    if ok {
+        Ok(())
+    } else {
+        Err(mismatch(format!(
+            "array '{array}' is {} and cannot feed input '{input}' ({}) without loss",
+            src.name(),
+            numpy_name(target).unwrap_or("?")
+        )))
+    }
+}
+
+/// Streams batches of every bound array in step.
+pub struct Feed<'a> {
+    binding: &'a Binding,
+    streams: Vec<RowStream>,
+    buf: Vec<u8>,
+    next_sample: usize,
+}
+
+impl<'a> Feed<'a> {
+    pub fn open(set: &EvalSet, binding: &'a Binding) -> EngineResult<Feed<'a>> {
+        let streams = binding
+            .inputs
+            .iter()
+            .map(|b| set.stream(b.member))
+            .collect::<EngineResult<_>>()?;
+        Ok(Feed { binding, streams, buf: Vec::new(), next_sample: 0 })
+    }
+
+    /// The next `rows` samples as one tensor per model input.
+    pub fn next_batch(&mut self, rows: usize) -> EngineResult<TVec<TValue>> {
+        let mut out = TVec::new();
+        for (b, stream) in self.binding.inputs.iter().zip(&mut self.streams) {
+            stream.read(rows, &mut self.buf)?;
+            let mut shape = vec![rows];
+            shape.extend_from_slice(&b.row_shape);
+            out.push(convert(&self.buf, &stream.header, b, &shape, self.next_sample)?.into_tvalue());
+        }
+        self.next_sample += rows;
+        Ok(out)
+    }
+}
+
+fn convert(
+    raw: &[u8],
+    header: &Header,
+    b: &InputBinding,
+    shape: &[usize],
+    first_sample: usize,
+) -> EngineResult<Tensor> {
+    let count: usize = shape.iter().product();
+    let per_row: usize = shape[1..].iter().product::<usize>().max(1);
+    let fail = |i: usize, what: &str| {
+        mismatch(format!(
+            "array '{}' at sample {}: {what} cannot be fed to a {} input without loss",
+            b.array,
+            first_sample + i / per_row,
+            numpy_name(b.target).unwrap_or("?")
+        ))
+    };
+    let as_float = |i: usize, limit: f64, max_exact: i128| -> EngineResult<f64> {
+        match npy::element(raw, header, i) {
+            Scalar::Float(v) if v.is_finite() && v.abs() > limit => Err(fail(i, &format!("{v}"))),
+            Scalar::Float(v) => Ok(v),
+            Scalar::Int(v) if v.abs() > max_exact => Err(fail(i, &format!("{v}"))),
+            Scalar::Int(v) => Ok(v as f64),
+        }
+    };
+    let tensor_err = |e: TractError| mismatch(format!("building an input tensor: {e}"));
+    let same_layout = !header.big_endian && numpy_name(b.target).ok() == Some(header.dtype.name());
+    if same_layout && b.target != DatumType::Bool {
+        // Same dtype, little-endian: the bytes are already the tensor's bytes.
+        // SAFETY: every bit pattern is a valid value of the numeric types here.
+        return unsafe { Tensor::from_raw_dt(b.target, shape, raw) }.map_err(tensor_err);
+    }
+    match b.target {
+        DatumType::F32 | DatumType::F16 => {
+            let (limit, exact) =
+                if b.target == DatumType::F16 { (65504.0, 2048) } else { (f32::MAX as f64, 1 << 24) };
+            let v = (0..count)
+                .map(|i| as_float(i, limit, exact).map(|x| x as f32))
+                .collect::<EngineResult<Vec<f32>>>()?;
+            let t = Tensor::from_shape(shape, &v).map_err(tensor_err)?;
+            if b.target == DatumType::F16 {
+                return t.cast_to_dt(DatumType::F16).map(|c| c.into_owned()).map_err(tensor_err);
+            }
+            Ok(t)
+        }
+        DatumType::F64 => {
+            let v = (0..count)
+                .map(|i| as_float(i, f64::MAX, 1 << 53))
+                .collect::<EngineResult<Vec<f64>>>()?;
+            Tensor::from_shape(shape, &v).map_err(tensor_err)
+        }
+        DatumType::Bool => {
+            let v: Vec<bool> =
+                (0..count).map(|i| npy::element(raw, header, i) != Scalar::Int(0)).collect();
+            Tensor::from_shape(shape, &v).map_err(tensor_err)
+        }
+        target => {
+            let (lo, hi) = int_range(target);
+            let v = (0..count)
+                .map(|i| match npy::element(raw, header, i) {
+                    Scalar::Int(v) if (lo..=hi).contains(&v) => Ok(v as i64),
+                    Scalar::Int(v) => Err(fail(i, &format!("{v}"))),
+                    Scalar::Float(v) => Err(fail(i, &format!("{v}"))),
+                })
+                .collect::<EngineResult<Vec<i64>>>()?;
+            let t = Tensor::from_shape(shape, &v).map_err(tensor_err)?;
+            if target == DatumType::I64 {
+                return Ok(t);
+            }
+            t.cast_to_dt(target).map(|c| c.into_owned()).map_err(tensor_err)
+        }
+    }
+}
+
+fn int_range(dt: DatumType) -> (i128, i128) {
+    match dt {
+        DatumType::I8 => (i8::MIN as i128, i8::MAX as i128),
+        DatumType::I16 => (i16::MIN as i128, i16::MAX as i128),
+        DatumType::I32 => (i32::MIN as i128, i32::MAX as i128),
+        DatumType::U8 => (0, u8::MAX as i128),
+        DatumType::U16 => (0, u16::MAX as i128),
+        DatumType::U32 => (0, u32::MAX as i128),
+        // u64 values above i64::MAX are refused: they travel through i64.
+        DatumType::U64 => (0, i64::MAX as i128),
+        _ => (i64::MIN as i128, i64::MAX as i128),
+    }
+}

@@ -1,0 +1,192 @@
+//! How closely a student reproduces its teacher (metrics.md, "Fidelity").
+
+use std::collections::BTreeMap;
+
+use serde::{Deserialize, Serialize};
+
+use super::{argmax, in_top_k, log_softmax, top_k};
+use crate::engine::logits::Logits;
+use crate::engine::stats::{Z95, wilson};
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ClassAgreement {
+    pub class: usize,
+    pub samples: u64,
+    pub agreement: f64,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Disagreement {
+    pub teacher_class: usize,
+    pub student_class: usize,
+    pub count: u64,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Fidelity {
+    pub agreement: f64,
+    pub agreement_ci: [f64; 2],
+    pub topk_agreement: f64,
+    pub kl: f64,
+    pub kl_t1: f64,
+    pub js: f64,
+    pub soft_cross_entropy: f64,
+    pub logit_mse: f64,
+    pub class_agreement: Vec<ClassAgreement>,
+    pub disagreements: Vec<Disagreement>,
+    /// Samples where the student's top class is the teacher's.
+    #[serde(skip)]
+    pub agreed: u64,
+}
+
+/// Per-sample sums accumulated in one pass over the rows.
+#[derive(Default)]
+struct Sums {
+    agree: u64,
+    topk: u64,
+    kl: f64,
+    kl_t1: f64,
+    js: f64,
+    soft_ce: f64,
+    mse: f64,
+}
+
+/// sum_c q (log q - log p), with 0 log 0 = 0.
+fn kl_row(log_q: &[f64], log_p: &[f64]) -> f64 {
+    log_q
+        .iter()
+        .zip(log_p)
+        .map(|(&lq, &lp)| {
+            let q = lq.exp();
+            if q == 0.0 { 0.0 } else { q * (lq - lp) }
+        })
+        .sum()
+}
+
+/// Jensen-Shannon divergence of two distributions given as logs (Lin 1991).
+fn js_row(log_a: &[f64], log_b: &[f64]) -> f64 {
+    let half_kl_to_mean = |x: f64, m: f64| if x == 0.0 { 0.0 } else { x * (x / m).ln() };
+    log_a
+        .iter()
+        .zip(log_b)
+        .map(|(&la, &lb)| {
+            let (a, b) = (la.exp(), lb.exp());
+            let m = 0.5 * (a + b);
+            0.5 * (half_kl_to_mean(a, m) + half_kl_to_mean(b, m))
+        })
+        .sum()
+}
+
+/// Mean squared difference of per-row centred logits.
+fn centred_mse_row(zs: &[f64], zt: &[f64]) -> f64 {
+    let c = zs.len() as f64;
+    let ms = zs.iter().sum::<f64>() / c;
+    let mt = zt.iter().sum::<f64>() / c;
+    zs.iter().zip(zt).map(|(s, t)| ((s - ms) - (t - mt)).powi(2)).sum::<f64>() / c
+}
+
+pub fn fidelity(teacher: &Logits, student: &Logits, temperature: f64) -> Fidelity {
+    assert_eq!((teacher.n, teacher.c), (student.n, student.c), "logit shapes differ");
+    let (n, k) = (teacher.n, top_k(teacher.c));
+    let mut s = Sums::default();
+    let mut per_class: BTreeMap<usize, (u64, u64)> = BTreeMap::new();
+    let mut pairs: BTreeMap<(usize, usize), u64> = BTreeMap::new();
+    let (mut lq, mut lp, mut lq1, mut lp1) = (Vec::new(), Vec::new(), Vec::new(), Vec::new());
+    for (zt, zs) in teacher.rows().zip(student.rows()) {
+        let (ct, cs) = (argmax(zt), argmax(zs));
+        let entry = per_class.entry(ct).or_default();
+        entry.0 += 1;
+        if ct == cs {
+            s.agree += 1;
+            entry.1 += 1;
+        } else {
+            *pairs.entry((ct, cs)).or_default() += 1;
+        }
+        s.topk += in_top_k(zs, ct, k) as u64;
+        log_softmax(zt, temperature, &mut lq);
+        log_softmax(zs, temperature, &mut lp);
+        log_softmax(zt, 1.0, &mut lq1);
+        log_softmax(zs, 1.0, &mut lp1);
+        s.kl += kl_row(&lq, &lp);
+        s.kl_t1 += kl_row(&lq1, &lp1);
+        s.js += js_row(&lq1, &lp1);
+        s.soft_ce -= lq.iter().zip(&lp).map(|(&q, &p)| q.exp() * p).sum::<f64>();
+        s.mse += centred_mse_row(zs, zt);
+    }
+    let nf = n as f64;
+    let mut disagreements: Vec<Disagreement> = pairs
+        .into_iter()
+        .map(|((t, st), count)| Disagreement { teacher_class: t, student_class: st, count })
+        .collect();
+    disagreements.sort_by(|a, b| {
+        b.count
+            .cmp(&a.count)
+            .then(a.teacher_class.cmp(&b.teacher_class))
+            .then(a.student_class.cmp(&b.student_class))
+    });
+    disagreements.truncate(10);
+    Fidelity {
+        agreement: s.agree as f64 / nf,
+        agreement_ci: wilson(s.agree, n as u64, Z95),
+        topk_agreement: s.topk as f64 / nf,
+        kl: s.kl / nf,
+        kl_t1: s.kl_t1 / nf,
+        js: s.js / nf,
+        soft_cross_entropy: s.soft_ce / nf,
+        logit_mse: s.mse / nf,
+        class_agreement: per_class
+            .into_iter()
+            .map(|(class, (samples, agree))| ClassAgreement {
+                class,
+                samples,
+                agreement: agree as f64 / samples as f64,
+            })
+            .collect(),
+        disagreements,
+        agreed: s.agree,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn logits(c: usize, v: &[f64]) -> Logits {
+        Logits::from_rows(c, v.to_vec())
+    }
+
+    #[test]
+    fn a_student_identical_to_its_teacher_agrees_fully_and_diverges_nowhere() {
+        // Common practice, no source: identical predictions give agreement 1 and KL 0.
+        let t = logits(3, &[1.0, 2.0, 0.5, -1.0, 0.0, 4.0, 3.0, 3.0, 1.0]);
+        let f = fidelity(&t, &t, 4.0);
+        assert_eq!(f.agreement, 1.0);
+        assert_eq!(f.kl, 0.0);
+        assert_eq!(f.kl_t1, 0.0);
+        assert_eq!(f.js, 0.0);
+        assert_eq!(f.logit_mse, 0.0);
+        assert!(f.disagreements.is_empty());
+    }
+
+    #[test]
+    fn kl_is_never_negative_and_js_never_exceeds_ln_2() {
+        // Common practice, no source (Gibbs' inequality; JS bound from Lin 1991).
+        let t = logits(2, &[50.0, -50.0, 0.0, 0.0, 3.0, 1.0]);
+        let s = logits(2, &[-50.0, 50.0, 0.1, 0.0, 1.0, 3.0]);
+        let f = fidelity(&t, &s, 1.0);
+        assert!(f.kl >= 0.0 && f.kl_t1 >= 0.0);
+        assert!(f.js <= std::f64::consts::LN_2, "{}", f.js);
+    }
+
+    #[test]
+    fn disagreements_are_sorted_by_count_then_classes() {
+        let t = logits(3, &[1.0, 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0]);
+        let s = logits(3, &[0.0, 1.0, 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0, 1.0, 0.0, 0.0]);
+        let f = fidelity(&t, &s, 1.0);
+        let got: Vec<(usize, usize, u64)> =
+            f.disagreements.iter().map(|d| (d.teacher_class, d.student_class, d.count)).collect();
+        assert_eq!(got, vec![(0, 1, 2), (1, 2, 1), (2, 0, 1)]);
+        assert_eq!(f.class_agreement.len(), 3);
+        assert_eq!(f.agreement, 0.0);
+    }
+}

@@ -1,0 +1,471 @@
+//! ONNX models through tract: loading, introspection and planning.
+//!
+//! Every call into tract is guarded: malformed graphs can make it panic, and a
+//! panic must become a typed error, never a crash. Tensors stored as ONNX
+//! external data are refused before tract sees the model, so Proctor never
+//! reads a file that a model names.
+
+use std::collections::HashMap;
+use std::panic::{AssertUnwindSafe, catch_unwind};
+use std::path::Path;
+use std::sync::Arc;
+
+use serde::{Deserialize, Serialize};
+use tract_onnx::pb;
+use tract_onnx::prelude::*;
+use tract_onnx::tract_core::ops::Cost;
+
+use super::error::{EngineError, EngineResult};
+
+/// One axis of a tensor: a size, or the name of a symbolic dimension.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(untagged)]
+pub enum Dim {
+    Fixed(usize),
+    Symbol(String),
+}
+
+/// A model input or output as the API shows it.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct TensorSpec {
+    pub name: String,
+    pub dtype: String,
+    pub shape: Vec<Dim>,
+}
+
+/// What an upload check learns about a model.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ModelInfo {
+    pub parameters: u64,
+    /// Multiply-accumulates for one sample, from tract's cost model; `None`
+    /// when it depends on a dimension other than the batch axis or tract
+    /// cannot tell.
+    pub macs: Option<u64>,
+    pub opset: Option<i64>,
+    pub producer: String,
+    pub inputs: Vec<TensorSpec>,
+    pub outputs: Vec<TensorSpec>,
+}
+
+/// How the first axis of a model's inputs may be filled.
+#[derive(Debug, Clone, PartialEq)]
+pub enum BatchAxis {
+    /// A symbolic batch axis: any batch size plans.
+    Symbolic(Symbol),
+    /// Fixed to this size (1 runs sample by sample; other sizes are refused).
+    Fixed(usize),
+}
+
+/// A loaded, typed and decluttered model, ready to be planned per batch size.
+#[derive(Debug)]
+pub struct Model {
+    pub info: ModelInfo,
+    typed: TypedModel,
+    pub batch: BatchAxis,
+    pub(crate) input_types: Vec<DatumType>,
+}
+
+/// A runnable plan for one batch size, shared between threads.
+#[derive(Debug, Clone)]
+pub struct Plan {
+    pub(crate) runnable: Arc<TypedRunnableModel>,
+    pub batch: usize,
+}
+
+fn invalid(msg: impl Into<String>) -> EngineError {
+    EngineError::InvalidModel(msg.into())
+}
+
+/// Runs `f`, turning tract errors and panics into typed errors.
+pub(crate) fn guarded<T>(what: &str, f: impl FnOnce() -> TractResult<T>) -> EngineResult<T> {
+    match catch_unwind(AssertUnwindSafe(f)) {
+        Ok(Ok(v)) => Ok(v),
+        Ok(Err(e)) => Err(invalid(format!("{what}: {e:#}"))),
+        Err(panic) => {
+            let msg = panic
+                .downcast_ref::<String>()
+                .map(String::as_str)
+                .or_else(|| panic.downcast_ref::<&str>().copied())
+                .unwrap_or("no message");
+            Err(invalid(format!("{what}: the engine failed on this graph ({msg})")))
+        }
+    }
+}
+
+impl Model {
+    pub fn load(path: &Path) -> EngineResult<Model> {
+        let bytes = std::fs::read(path).map_err(EngineError::io("reading the model"))?;
+        Self::from_bytes(&bytes)
+    }
+
+    pub fn from_bytes(bytes: &[u8]) -> EngineResult<Model> {
+        let proto = guarded("not an ONNX model", || {
+            tract_onnx::onnx().proto_model_for_read(&mut &*bytes)
+        })?;
+        let graph = proto.graph.as_ref().ok_or_else(|| invalid("the ONNX model has no graph"))?;
+        refuse_external_data(graph)?;
+        if graph.node.iter().any(|n| n.op_type == "ZipMap") {
+            return Err(invalid(
+                "the model ends in ZipMap, which the engine cannot run: export it without ZipMap \
+                 (e.g. skl2onnx options {'zipmap': False}) or name a tensor output",
+            ));
+        }
+        let initializers: std::collections::HashSet<&str> =
+            graph.initializer.iter().map(|t| t.name.as_str()).collect();
+        let declared: Vec<&pb::ValueInfoProto> =
+            graph.input.iter().filter(|i| !initializers.contains(i.name.as_str())).collect();
+
+        let mut model = guarded("the engine cannot load this ONNX graph", || {
+            tract_onnx::onnx().model_for_proto_model(&proto)
+        })?;
+        let shapes = name_input_axes(&declared)?;
+        let mut input_types = Vec::with_capacity(declared.len());
+        let mut inputs = Vec::with_capacity(declared.len());
+        for (ix, (value, dims)) in declared.iter().zip(&shapes).enumerate() {
+            let dt = input_datum_type(value)?;
+            let tdims: Vec<TDim> = dims
+                .iter()
+                .map(|d| match d {
+                    Dim::Fixed(n) => TDim::from(*n as i64),
+                    Dim::Symbol(s) => model.symbols.sym(s).into(),
+                })
+                .collect();
+            guarded("the engine cannot set this model's input", || {
+                model.set_input_fact(ix, InferenceFact::dt_shape(dt, tdims))
+            })?;
+            input_types.push(dt);
+            inputs.push(TensorSpec {
+                name: value.name.clone(),
+                dtype: numpy_name(dt)?.to_string(),
+                shape: dims.clone(),
+            });
+        }
+        let typed = guarded("the engine cannot type this graph", || {
+            model.into_typed()?.into_decluttered()
+        })?;
+        let batch = batch_axis(&typed, &shapes)?;
+        let outputs = output_specs(&typed)?;
+        let info = ModelInfo {
+            parameters: count_parameters(graph),
+            macs: None,
+            opset: proto
+                .opset_import
+                .iter()
+                .find(|o| o.domain.is_empty() || o.domain == "ai.onnx")
+                .map(|o| o.version),
+            producer: [proto.producer_name.as_str(), proto.producer_version.as_str()]
+                .join(" ")
+                .trim()
+                .to_string(),
+            inputs,
+            outputs,
+        };
+        let mut model = Model { info, typed, batch, input_types };
+        model.info.macs = model.macs_per_sample(&HashMap::new());
+        Ok(model)
+    }
+
+    /// Index of the scored output: the named one, or the first.
+    pub fn output_index(&self, output: Option<&str>) -> EngineResult<usize> {
+        match output {
+            None => Ok(0),
+            Some(name) => {
+                self.info.outputs.iter().position(|o| o.name == name).ok_or_else(|| {
+                    let known: Vec<&str> =
+                        self.info.outputs.iter().map(|o| o.name.as_str()).collect();
+                    EngineError::Mismatch(format!(
+                        "the model has no output named '{name}' (its outputs: {})",
+                        known.join(", ")
+                    ))
+                })
+            }
+        }
+    }
+
+    /// Every symbol's value: the batch axis, then the set's other dimensions.
+    fn bindings(&self, batch: usize, dims: &HashMap<String, usize>) -> Vec<(Symbol, i64)> {
+        let mut out = Vec::new();
+        if let BatchAxis::Symbolic(s) = &self.batch {
+            out.push((s.clone(), batch as i64));
+        }
+        for (name, v) in dims {
+            if let Some(s) = self.typed.symbols.get(name) {
+                out.push((s, *v as i64));
+            }
+        }
+        out
+    }
+
+    fn symbol_values(&self, batch: usize, dims: &HashMap<String, usize>) -> SymbolValues {
+        let mut values = SymbolValues::default();
+        for (s, v) in self.bindings(batch, dims) {
+            values.set(&s, v);
+        }
+        values
+    }
+
+    /// MACs for one sample with the given non-batch dimensions.
+    pub fn macs_per_sample(&self, dims: &HashMap<String, usize>) -> Option<u64> {
+        let values = self.symbol_values(1, dims);
+        let total = guarded("cost", || {
+            let mut total = TDim::from(0i64);
+            for node in self.typed.nodes() {
+                let inputs = self.typed.node_input_facts(node.id)?;
+                for (cost, count) in node.op.cost(&inputs)? {
+                    if matches!(cost, Cost::FMA(_)) {
+                        total += count;
+                    }
+                }
+            }
+            total.eval(&values).to_i64().map_err(|e| anyhow::anyhow!("{e:?}"))
+        })
+        .ok()?;
+        let per_batch = u64::try_from(total).ok()?;
+        match self.batch {
+            BatchAxis::Fixed(b) if b > 1 => Some(per_batch / b as u64),
+            _ => Some(per_batch),
+        }
+    }
+
+    /// The scored output's shape with every symbol bound, before squeezing.
+    pub fn output_shape(
+        &self,
+        batch: usize,
+        dims: &HashMap<String, usize>,
+        output: usize,
+    ) -> EngineResult<Vec<usize>> {
+        let values = self.symbol_values(batch, dims);
+        let outlet = self.typed.output_outlets().map_err(|e| invalid(e.to_string()))?[output];
+        let fact = self.typed.outlet_fact(outlet).map_err(|e| invalid(e.to_string()))?;
+        fact.shape
+            .iter()
+            .map(|d| {
+                d.eval(&values).to_i64().ok().and_then(|v| usize::try_from(v).ok()).ok_or_else(|| {
+                    invalid(format!(
+                        "the size of output axis '{d}' cannot be worked out from the inputs"
+                    ))
+                })
+            })
+            .collect()
+    }
+
+    /// Optimizes the model for one batch size with every symbol bound, keeping
+    /// only the scored output. Concrete plans run markedly faster than
+    /// symbolic ones in tract.
+    pub fn plan(
+        &self,
+        batch: usize,
+        dims: &HashMap<String, usize>,
+        output: usize,
+    ) -> EngineResult<Plan> {
+        if let BatchAxis::Fixed(b) = self.batch
+            && b != batch
+        {
+            return Err(EngineError::Mismatch(format!(
+                "the model's batch axis is fixed to {b}, so it cannot run batches of {batch}"
+            )));
+        }
+        let subs: HashMap<Symbol, TDim> =
+            self.bindings(batch, dims).into_iter().map(|(s, v)| (s, TDim::from(v))).collect();
+        let runnable = guarded("the engine cannot plan this graph", || {
+            let mut m = self.typed.clone();
+            let outlet = m.output_outlets()?[output];
+            m.select_output_outlets(&[outlet])?;
+            m.set_symbols(&subs)?.into_optimized()?.into_runnable()
+        })?;
+        Ok(Plan { runnable, batch })
+    }
+}
+
+impl Plan {
+    /// Runs the plan once on a full batch of inputs.
+    pub fn run(&self, inputs: TVec<TValue>) -> EngineResult<Tensor> {
+        let mut out = guarded("the engine failed while running the model", || {
+            self.runnable.run(inputs)
+        })?;
+        let first = out.remove(0);
+        Ok(first.into_tensor())
+    }
+}
+
+/// Gives every input axis a size or a symbol name. Unnamed symbolic axes
+/// would get auto-named symbols that tract cannot unify across inputs, so an
+/// unnamed first axis becomes the batch symbol and other unnamed axes get a
+/// name derived from the input and axis.
+fn name_input_axes(declared: &[&pb::ValueInfoProto]) -> EngineResult<Vec<Vec<Dim>>> {
+    use pb::tensor_shape_proto::dimension::Value;
+    let raw: Vec<Vec<Option<Dim>>> = declared
+        .iter()
+        .map(|v| {
+            let Some(pb::type_proto::Value::TensorType(t)) =
+                v.r#type.as_ref().and_then(|t| t.value.as_ref())
+            else {
+                return Err(invalid(format!("input '{}' is not a tensor", v.name)));
+            };
+            let shape = t.shape.as_ref().ok_or_else(|| {
+                invalid(format!("input '{}' has no declared shape", v.name))
+            })?;
+            Ok(shape
+                .dim
+                .iter()
+                .map(|d| match &d.value {
+                    Some(Value::DimValue(n)) if *n >= 0 => Some(Dim::Fixed(*n as usize)),
+                    Some(Value::DimParam(s)) if !s.is_empty() => Some(Dim::Symbol(s.clone())),
+                    _ => None,
+                })
+                .collect())
+        })
+        .collect::<EngineResult<_>>()?;
+    let batch_name = raw
+        .iter()
+        .find_map(|dims| match dims.first() {
+            Some(Some(Dim::Symbol(s))) => Some(s.clone()),
+            _ => None,
+        })
+        .unwrap_or_else(|| "batch".to_string());
+    Ok(raw
+        .into_iter()
+        .zip(declared)
+        .map(|(dims, v)| {
+            dims.into_iter()
+                .enumerate()
+                .map(|(axis, d)| match d {
+                    Some(d) => d,
+                    None if axis == 0 => Dim::Symbol(batch_name.clone()),
+                    None => Dim::Symbol(format!("{}_axis{axis}", v.name)),
+                })
+                .collect()
+        })
+        .collect())
+}
+
+fn batch_axis(typed: &TypedModel, shapes: &[Vec<Dim>]) -> EngineResult<BatchAxis> {
+    let firsts: Vec<&Dim> = shapes.iter().filter_map(|s| s.first()).collect();
+    if firsts.len() != shapes.len() || firsts.is_empty() {
+        return Err(invalid("every model input needs a first (batch) axis"));
+    }
+    match firsts[0] {
+        Dim::Symbol(name) if firsts.iter().all(|d| *d == firsts[0]) => {
+            let sym = typed.symbols.get(name).ok_or_else(|| invalid("batch symbol lost"))?;
+            Ok(BatchAxis::Symbolic(sym))
+        }
+        Dim::Fixed(n) if firsts.iter().all(|d| *d == firsts[0]) => Ok(BatchAxis::Fixed(*n)),
+        _ => Err(invalid("the model's inputs disagree on the batch axis (their first axes differ)")),
+    }
+}
+
+fn output_specs(typed: &TypedModel) -> EngineResult<Vec<TensorSpec>> {
+    let outlets = typed.output_outlets().map_err(|e| invalid(e.to_string()))?;
+    outlets
+        .iter()
+        .map(|&o| {
+            let fact = typed.outlet_fact(o).map_err(|e| invalid(e.to_string()))?;
+            let name = typed
+                .outlet_label(o)
+                .map(str::to_string)
+                .unwrap_or_else(|| typed.node(o.node).name.clone());
+            Ok(TensorSpec {
+                name,
+                dtype: numpy_name(fact.datum_type).unwrap_or("other").to_string(),
+                shape: fact
+                    .shape
+                    .iter()
+                    .map(|d| match d.to_i64() {
+                        Ok(n) => Dim::Fixed(n as usize),
+                        Err(_) => Dim::Symbol(d.to_string()),
+                    })
+                    .collect(),
+            })
+        })
+        .collect()
+}
+
+fn input_datum_type(value: &pb::ValueInfoProto) -> EngineResult<DatumType> {
+    use pb::tensor_proto::DataType as D;
+    let Some(pb::type_proto::Value::TensorType(t)) =
+        value.r#type.as_ref().and_then(|t| t.value.as_ref())
+    else {
+        return Err(invalid(format!("input '{}' is not a tensor", value.name)));
+    };
+    let dt = match D::try_from(t.elem_type) {
+        Ok(D::Float) => DatumType::F32,
+        Ok(D::Double) => DatumType::F64,
+        Ok(D::Float16) => DatumType::F16,
+        Ok(D::Int64) => DatumType::I64,
+        Ok(D::Int32) => DatumType::I32,
+        Ok(D::Int16) => DatumType::I16,
+        Ok(D::Int8) => DatumType::I8,
+        Ok(D::Uint8) => DatumType::U8,
+        Ok(D::Uint16) => DatumType::U16,
+        Ok(D::Uint32) => DatumType::U32,
+        Ok(D::Uint64) => DatumType::U64,
+        Ok(D::Bool) => DatumType::Bool,
+        _ => {
+            return Err(invalid(format!(
+                "input '{}' has an element type Proctor cannot feed (ONNX type {})",
+                value.name, t.elem_type
+            )));
+        }
+    };
+    Ok(dt)
+}
+
+pub(crate) fn numpy_name(dt: DatumType) -> EngineResult<&'static str> {
+    Ok(match dt {
+        DatumType::F32 => "float32",
+        DatumType::F64 => "float64",
+        DatumType::F16 => "float16",
+        DatumType::I64 => "int64",
+        DatumType::I32 => "int32",
+        DatumType::I16 => "int16",
+        DatumType::I8 => "int8",
+        DatumType::U8 => "uint8",
+        DatumType::U16 => "uint16",
+        DatumType::U32 => "uint32",
+        DatumType::U64 => "uint64",
+        DatumType::Bool => "bool",
+        other => return Err(invalid(format!("unsupported tensor type {other:?}"))),
+    })
+}
+
+/// Sum over the main graph's initializers of the product of their dims.
+fn count_parameters(graph: &pb::GraphProto) -> u64 {
+    graph
+        .initializer
+        .iter()
+        .map(|t| t.dims.iter().map(|&d| d.max(0) as u64).product::<u64>())
+        .sum()
+}
+
+/// Refuses any tensor, at any depth of the graph, stored as external data.
+fn refuse_external_data(graph: &pb::GraphProto) -> EngineResult<()> {
+    let external = |t: &pb::TensorProto| {
+        t.data_location == Some(pb::tensor_proto::DataLocation::External as i32)
+            || !t.external_data.is_empty()
+    };
+    let refuse = |t: &pb::TensorProto| {
+        Err(invalid(format!(
+            "tensor '{}' is stored as ONNX external data; Proctor reads only self-contained \
+             models: save with onnx.save(model, path, save_as_external_data=False)",
+            t.name
+        )))
+    };
+    for t in &graph.initializer {
+        if external(t) {
+            return refuse(t);
+        }
+    }
+    for node in &graph.node {
+        for attr in &node.attribute {
+            for t in attr.t.iter().chain(&attr.tensors) {
+                if external(t) {
+                    return refuse(t);
+                }
+            }
+            for g in attr.g.iter().chain(&attr.graphs) {
+                refuse_external_data(g)?;
+            }
+        }
+    }
+    Ok(())
+}

@@ -1,0 +1,77 @@
+//! Handlers for models and evaluation sets.
+
+use axum::Json;
+use axum::body::Body;
+use axum::extract::{Path, State};
+use axum::http::{HeaderMap, StatusCode, header};
+use axum::response::{IntoResponse, Response};
+
+use super::extract::{QueryMap, path_id};
+use crate::error::AppError;
+use crate::service::{App, Uploaded};
+
+fn declared_length(headers: &HeaderMap) -> Option<u64> {
+    headers.get(header::CONTENT_LENGTH)?.to_str().ok()?.parse().ok()
+}
+
+fn upload_name(q: &QueryMap) -> Result<String, AppError> {
+    q.text("name")
+        .ok_or_else(|| AppError::bad_request("give the upload a name: ?name=NAME", Some("name")))
+}
+
+/// 201 with a Location for a new record, 200 for a file already stored.
+fn uploaded<T: serde::Serialize>(up: Uploaded<T>, location: String) -> Response {
+    if up.created {
+        (StatusCode::CREATED, [(header::LOCATION, location)], Json(up.record)).into_response()
+    } else {
+        (StatusCode::OK, [(header::LOCATION, location)], Json(up.record)).into_response()
+    }
+}
+
+pub(super) async fn upload_model(
+    State(app): State<App>,
+    q: QueryMap,
+    headers: HeaderMap,
+    body: Body,
+) -> Result<Response, AppError> {
+    let up = app.upload_model(upload_name(&q)?, body.into_data_stream(), declared_length(&headers)).await?;
+    let location = format!("/v1/models/{}", up.record.id);
+    Ok(uploaded(up, location))
+}
+
+pub(super) async fn get_model(State(app): State<App>, Path(id): Path<String>) -> Result<Response, AppError> {
+    let id = path_id(&id, "model")?;
+    let m = app.store.model(id).await?.ok_or_else(|| AppError::NotFound(format!("no model has id {id}")))?;
+    Ok(Json(m).into_response())
+}
+
+pub(super) async fn list_models(State(app): State<App>, q: QueryMap) -> Result<Response, AppError> {
+    let page = app.store.list_models(q.sha256()?.as_deref(), q.limit()?, q.uuid("cursor")?).await?;
+    Ok(Json(page).into_response())
+}
+
+pub(super) async fn upload_dataset(
+    State(app): State<App>,
+    q: QueryMap,
+    headers: HeaderMap,
+    body: Body,
+) -> Result<Response, AppError> {
+    let up = app.upload_dataset(upload_name(&q)?, body.into_data_stream(), declared_length(&headers)).await?;
+    let location = format!("/v1/datasets/{}", up.record.id);
+    Ok(uploaded(up, location))
+}
+
+pub(super) async fn get_dataset(State(app): State<App>, Path(id): Path<String>) -> Result<Response, AppError> {
+    let id = path_id(&id, "evaluation set")?;
+    let d = app
+        .store
+        .dataset(id)
+        .await?
+        .ok_or_else(|| AppError::NotFound(format!("no evaluation set has id {id}")))?;
+    Ok(Json(d).into_response())
+}
+
+pub(super) async fn list_datasets(State(app): State<App>, q: QueryMap) -> Result<Response, AppError> {
+    let page = app.store.list_datasets(q.sha256()?.as_deref(), q.limit()?, q.uuid("cursor")?).await?;
+    Ok(Json(page).into_response())
+}

@@ -1,0 +1,121 @@
+//! The JSON shape of an evaluation report (api.md, "Report"). These types
+//! only describe; the engine fills them and the service stores and serves
+//! them unchanged.
+
+use serde::{Deserialize, Serialize};
+use time::OffsetDateTime;
+use uuid::Uuid;
+
+use crate::engine::environment::Environment;
+use crate::engine::gates::GateOutcome;
+use crate::engine::logits::OutputKind;
+use crate::engine::metrics::accuracy::{Accuracy, StudentAccuracy};
+use crate::engine::metrics::fidelity::Fidelity;
+use crate::engine::settings::{Gates, LatencySettings, RankBy};
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Report {
+    pub evaluation: Uuid,
+    pub project: String,
+    #[serde(with = "time::serde::rfc3339")]
+    pub created_at: OffsetDateTime,
+    #[serde(with = "time::serde::rfc3339")]
+    pub finished_at: OffsetDateTime,
+    pub environment: Environment,
+    pub settings: ReportSettings,
+    pub dataset: DatasetSummary,
+    pub teacher: TeacherEntry,
+    pub candidates: Vec<Candidate>,
+    pub verdict: Verdict,
+    pub recommended: Option<Uuid>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ReportSettings {
+    pub temperature: f64,
+    pub alpha: f64,
+    pub batch_size: u32,
+    pub latency: LatencySettings,
+    pub rank_by: RankBy,
+    pub gates: Gates,
+    pub output: Option<String>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct DatasetSummary {
+    pub id: Uuid,
+    pub name: String,
+    pub samples: u64,
+    pub has_labels: bool,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ModelSummary {
+    pub id: Uuid,
+    pub name: String,
+    pub sha256: String,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct TeacherSize {
+    pub bytes: u64,
+    pub parameters: u64,
+    pub macs: Option<u64>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Size {
+    pub bytes: u64,
+    pub parameters: u64,
+    pub macs: Option<u64>,
+    pub size_ratio: f64,
+    pub parameter_ratio: Option<f64>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Latency {
+    pub p50_ms: f64,
+    pub p90_ms: f64,
+    pub p99_ms: f64,
+    pub mean_ms: f64,
+    /// Sample standard deviation; null with a single iteration.
+    pub stdev_ms: Option<f64>,
+    pub throughput_sps: f64,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct StudentLatency {
+    #[serde(flatten)]
+    pub own: Latency,
+    pub speedup: f64,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct TeacherEntry {
+    pub model: ModelSummary,
+    pub output_kind: OutputKind,
+    pub accuracy: Option<Accuracy>,
+    pub size: TeacherSize,
+    pub latency: Latency,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Candidate {
+    pub rank: u32,
+    pub model: ModelSummary,
+    pub output_kind: OutputKind,
+    pub fidelity: Fidelity,
+    pub accuracy: Option<StudentAccuracy>,
+    pub size: Size,
+    pub latency: StudentLatency,
+    pub pareto_optimal: bool,
+    pub gates: GateOutcome,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+pub enum Verdict {
+    #[serde(rename = "go")]
+    Go,
+    #[serde(rename = "no-go")]
+    NoGo,
+}

@@ -1,0 +1,24 @@
+//! What the service does, between the HTTP edge and the store: uploads,
+//! evaluations, reports. Handlers call these functions and hold no logic.
+
+mod evaluations;
+mod uploads;
+
+pub use evaluations::{EvaluationRequest, ListQuery};
+pub use uploads::Uploaded;
+
+use crate::queue::Queue;
+use crate::store::Store;
+
+#[derive(Debug, Clone)]
+pub struct ServiceConfig {
+    pub max_upload_bytes: u64,
+}
+
+/// Shared state of the running service, cheap to clone into handlers.
+#[derive(Clone)]
+pub struct App {
+    pub store: Store,
+    pub queue: Queue,
+    pub config: ServiceConfig,
+}

@@ -1,0 +1,10 @@
+//! The evaluation engine checked against libraries outside the project:
+//! onnxruntime for model outputs, numpy/scipy/statsmodels for every figure
+//! (fixtures from tests/reference/generate.py).
+
+#[path = "../support/mod.rs"]
+mod support;
+
+mod bad_inputs;
+mod evaluation;
+mod reference;

@@ -1,0 +1,189 @@
+//! The real `proctor` binary on a free port with its own data dir, and one
+//! typed helper per endpoint.
+
+use std::io::{BufRead, BufReader};
+use std::path::{Path, PathBuf};
+use std::process::{Child, Command, Stdio};
+use std::time::{Duration, Instant};
+
+use serde_json::Value;
+
+pub struct Server {
+    child: Option<Child>,
+    pub base: String,
+    pub data_dir: PathBuf,
+    _dir: Option<tempfile::TempDir>,
+    client: reqwest::Client,
+}
+
+/// A response: status, JSON body (Null when not JSON) and content type.
+pub struct Answer {
+    pub status: u16,
+    pub body: Value,
+    pub content_type: String,
+    pub location: Option<String>,
+}
+
+impl Server {
+    /// Starts a server on a fresh data dir.
+    pub fn start(extra: &[&str]) -> Server {
+        let dir = tempfile::tempdir().unwrap();
+        let mut s = Server::start_in(dir.path(), extra);
+        s._dir = Some(dir);
+        s
+    }
+
+    /// Starts a server on an existing data dir (to test restarts).
+    pub fn start_in(data_dir: &Path, extra: &[&str]) -> Server {
+        let log = std::fs::OpenOptions::new()
+            .create(true)
+            .append(true)
+            .open(data_dir.join("server.log"))
+            .unwrap();
+        let mut child = Command::new(env!("CARGO_BIN_EXE_proctor"))
+            .arg("serve")
+            .args(["--listen", "127.0.0.1:0", "--data-dir"])
+            .arg(data_dir)
+            .args(extra)
+            .stdout(Stdio::piped())
+            .stderr(log)
+            .spawn()
+            .unwrap();
+        let stdout = child.stdout.take().unwrap();
+        let mut line = String::new();
+        BufReader::new(stdout).read_line(&mut line).unwrap();
+        let base = line
+            .trim()
+            .strip_prefix("proctor listening on ")
+            .unwrap_or_else(|| panic!("unexpected first line {line:?}; see {}/server.log", data_dir.display()))
+            .to_string();
+        Server {
+            child: Some(child),
+            base,
+            data_dir: data_dir.to_owned(),
+            _dir: None,
+            client: reqwest::Client::new(),
+        }
+    }
+
+    /// Kills the server with SIGKILL, as a crash would.
+    pub fn kill9(&mut self) {
+        if let Some(mut c) = self.child.take() {
+            let _ = c.kill();
+            let _ = c.wait();
+        }
+    }
+
+    /// Sends SIGTERM and waits for a clean exit.
+    pub fn terminate(&mut self) -> std::process::ExitStatus {
+        let mut c = self.child.take().unwrap();
+        unsafe {
+            libc::kill(c.id() as i32, libc::SIGTERM);
+        }
+        c.wait().unwrap()
+    }
+
+    async fn answer(res: reqwest::Response) -> Answer {
+        let status = res.status().as_u16();
+        let header = |name: &str| res.headers().get(name).and_then(|v| v.to_str().ok()).map(str::to_string);
+        let content_type = header("content-type").unwrap_or_default();
+        let location = header("location");
+        let text = res.text().await.unwrap();
+        let body = serde_json::from_str(&text).unwrap_or(Value::Null);
+        Answer { status, body, content_type, location }
+    }
+
+    pub async fn get(&self, path: &str) -> Answer {
+        Self::answer(self.client.get(format!("{}{path}", self.base)).send().await.unwrap()).await
+    }
+
+    pub async fn delete(&self, path: &str) -> Answer {
+        Self::answer(self.client.delete(format!("{}{path}", self.base)).send().await.unwrap()).await
+    }
+
+    pub async fn post_bytes(&self, path: &str, bytes: Vec<u8>) -> Answer {
+        let res = self
+            .client
+            .post(format!("{}{path}", self.base))
+            .header("content-type", "application/octet-stream")
+            .body(bytes)
+            .send()
+            .await
+            .unwrap();
+        Self::answer(res).await
+    }
+
+    pub async fn post_json_text(&self, path: &str, text: &str) -> Answer {
+        let res = self
+            .client
+            .post(format!("{}{path}", self.base))
+            .header("content-type", "application/json")
+            .body(text.to_string())
+            .send()
+            .await
+            .unwrap();
+        Self::answer(res).await
+    }
+
+    pub async fn upload_model(&self, file: &Path, name: &str) -> Answer {
+        self.post_bytes(&format!("/v1/models?name={name}"), std::fs::read(file).unwrap()).await
+    }
+
+    pub async fn upload_dataset(&self, file: &Path, name: &str) -> Answer {
+        self.post_bytes(&format!("/v1/datasets?name={name}"), std::fs::read(file).unwrap()).await
+    }
+
+    /// Uploads and returns the id, asserting success.
+    pub async fn model_id(&self, file: &Path) -> String {
+        let name = file.file_stem().unwrap().to_string_lossy().to_string();
+        let a = self.upload_model(file, &name).await;
+        assert!(a.status == 201 || a.status == 200, "upload of {}: {} {}", file.display(), a.status, a.body);
+        a.body["id"].as_str().unwrap().to_string()
+    }
+
+    pub async fn dataset_id(&self, file: &Path) -> String {
+        let a = self.upload_dataset(file, "set").await;
+        assert!(a.status == 201 || a.status == 200, "upload of {}: {} {}", file.display(), a.status, a.body);
+        a.body["id"].as_str().unwrap().to_string()
+    }
+
+    pub async fn create_evaluation(&self, body: &Value) -> Answer {
+        self.post_json_text("/v1/evaluations", &body.to_string()).await
+    }
+
+    pub async fn evaluation(&self, id: &str) -> Value {
+        self.get(&format!("/v1/evaluations/{id}")).await.body
+    }
+
+    /// Polls until the evaluation has finished, and returns it.
+    pub async fn wait_finished(&self, id: &str, limit: Duration) -> Value {
+        let start = Instant::now();
+        loop {
+            let e = self.evaluation(id).await;
+            if matches!(e["status"].as_str(), Some("succeeded" | "failed" | "canceled")) {
+                return e;
+            }
+            assert!(start.elapsed() < limit, "evaluation {id} still {} after {limit:?}", e["status"]);
+            tokio::time::sleep(Duration::from_millis(100)).await;
+        }
+    }
+
+    /// Polls until the evaluation's status is `status`.
+    pub async fn wait_status(&self, id: &str, status: &str, limit: Duration) -> Value {
+        let start = Instant::now();
+        loop {
+            let e = self.evaluation(id).await;
+            if e["status"] == status {
+                return e;
+            }
+            assert!(start.elapsed() < limit, "evaluation {id} is {} and never {status}", e["status"]);
+            tokio::time::sleep(Duration::from_millis(50)).await;
+        }
+    }
+}
+
+impl Drop for Server {
+    fn drop(&mut self) {
+        self.kill9();
+    }
+}
