@@ -87,6 +87,11 @@ pub(crate) fn guarded<T>(what: &str, f: impl FnOnce() -> TractResult<T>) -> Engi
                 .map(String::as_str)
                 .or_else(|| panic.downcast_ref::<&str>().copied())
                 .unwrap_or("no message");
+            if msg.contains("allocate") || msg.contains("capacity overflow") {
+                return Err(invalid(format!(
+                    "{what}: the model needs more memory than an evaluation may use ({msg})"
+                )));
+            }
             Err(invalid(format!("{what}: the engine failed on this graph ({msg})")))
         }
     }

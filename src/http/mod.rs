@@ -12,7 +12,7 @@ use std::time::Duration;
 use axum::Router;
 use axum::http::{HeaderName, Request, StatusCode, header};
 use axum::response::IntoResponse;
-use axum::routing::{get, post};
+use axum::routing::{MethodRouter, delete, get, post};
 use tower::ServiceBuilder;
 use tower_http::compression::CompressionLayer;
 use tower_http::request_id::{MakeRequestUuid, PropagateRequestIdLayer, SetRequestIdLayer};
@@ -32,40 +32,50 @@ async fn openapi() -> impl IntoResponse {
     ([(header::CONTENT_TYPE, "application/yaml")], OPENAPI)
 }
 
-/// Every route with the method it answers, for the check against openapi.yaml.
-pub const ROUTES: &[(&str, &str)] = &[
-    ("post", "/v1/models"),
-    ("get", "/v1/models"),
-    ("get", "/v1/models/{id}"),
-    ("post", "/v1/datasets"),
-    ("get", "/v1/datasets"),
-    ("get", "/v1/datasets/{id}"),
-    ("post", "/v1/evaluations"),
-    ("get", "/v1/evaluations"),
-    ("get", "/v1/evaluations/{id}"),
-    ("delete", "/v1/evaluations/{id}"),
-    ("get", "/v1/evaluations/{id}/report"),
-    ("get", "/healthz"),
-    ("get", "/readyz"),
-    ("get", "/openapi.yaml"),
-];
+/// Whether a route streams its body (uploads) or is bounded in time.
+#[derive(Clone, Copy, PartialEq, Eq)]
+enum Kind {
+    Upload,
+    Bounded,
+}
+
+/// Every route the router serves: the one table both the router and the
+/// check against openapi.yaml are built from.
+fn table() -> Vec<(&'static str, &'static str, Kind, MethodRouter<App>)> {
+    use Kind::*;
+    vec![
+        ("post", "/v1/models", Upload, post(catalog::upload_model)),
+        ("get", "/v1/models", Bounded, get(catalog::list_models)),
+        ("get", "/v1/models/{id}", Bounded, get(catalog::get_model)),
+        ("post", "/v1/datasets", Upload, post(catalog::upload_dataset)),
+        ("get", "/v1/datasets", Bounded, get(catalog::list_datasets)),
+        ("get", "/v1/datasets/{id}", Bounded, get(catalog::get_dataset)),
+        ("post", "/v1/evaluations", Bounded, post(evaluations::create)),
+        ("get", "/v1/evaluations", Bounded, get(evaluations::list)),
+        ("get", "/v1/evaluations/{id}", Bounded, get(evaluations::get)),
+        ("delete", "/v1/evaluations/{id}", Bounded, delete(evaluations::cancel)),
+        ("get", "/v1/evaluations/{id}/report", Bounded, get(evaluations::report)),
+        ("get", "/healthz", Bounded, get(health::healthz)),
+        ("get", "/readyz", Bounded, get(health::readyz)),
+        ("get", "/openapi.yaml", Bounded, get(openapi)),
+    ]
+}
+
+/// (method, path) of every served route.
+pub fn routes() -> Vec<(&'static str, &'static str)> {
+    table().into_iter().map(|(m, p, _, _)| (m, p)).collect()
+}
 
 pub fn router(app: App) -> Router {
     // Uploads stream for as long as they need; everything else is bounded.
-    let uploads = Router::new()
-        .route("/v1/models", post(catalog::upload_model))
-        .route("/v1/datasets", post(catalog::upload_dataset));
-    let bounded = Router::new()
-        .route("/v1/models", get(catalog::list_models))
-        .route("/v1/models/{id}", get(catalog::get_model))
-        .route("/v1/datasets", get(catalog::list_datasets))
-        .route("/v1/datasets/{id}", get(catalog::get_dataset))
-        .route("/v1/evaluations", post(evaluations::create).get(evaluations::list))
-        .route("/v1/evaluations/{id}", get(evaluations::get).delete(evaluations::cancel))
-        .route("/v1/evaluations/{id}/report", get(evaluations::report))
-        .route("/healthz", get(health::healthz))
-        .route("/readyz", get(health::readyz))
-        .route("/openapi.yaml", get(openapi))
+    let (mut uploads, mut bounded) = (Router::new(), Router::new());
+    for (_, path, kind, handler) in table() {
+        match kind {
+            Kind::Upload => uploads = uploads.route(path, handler),
+            Kind::Bounded => bounded = bounded.route(path, handler),
+        }
+    }
+    let bounded = bounded
         .layer(TimeoutLayer::with_status_code(StatusCode::REQUEST_TIMEOUT, REQUEST_TIMEOUT))
         .layer(CompressionLayer::new());
     let request_id = HeaderName::from_static("x-request-id");

@@ -69,6 +69,9 @@ pub async fn run(
         .stdin(Stdio::piped())
         .stdout(Stdio::piped())
         .stderr(Stdio::piped())
+        // Symbolizing a backtrace right after a failed allocation can
+        // deadlock; the child reports panics in one line instead.
+        .env("RUST_BACKTRACE", "0")
         .kill_on_drop(true);
     let cap = limits.memory_bytes;
     // SAFETY: prctl and setrlimit are async-signal-safe, as pre_exec requires.

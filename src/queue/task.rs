@@ -22,6 +22,12 @@ fn emit(out: &Mutex<std::io::Stdout>, message: &Message) {
 /// Runs the task read from stdin; the exit code is 0 whenever an answer
 /// (success or a typed failure) was written.
 pub fn run_from_stdin() -> i32 {
+    // tract may panic on graphs it cannot handle (the engine catches that).
+    // The default hook would symbolize a backtrace, which can itself run out
+    // of memory right after a failed allocation and deadlock the process.
+    std::panic::set_hook(Box::new(|info| {
+        let _ = writeln!(std::io::stderr(), "engine panic: {info}");
+    }));
     let mut input = String::new();
     if std::io::stdin().lock().read_line(&mut input).is_err() {
         return 2;

@@ -1,3 +1,4 @@
+#![allow(unreachable_pub)]
 //! The evaluation engine checked against libraries outside the project:
 //! onnxruntime for model outputs, numpy/scipy/statsmodels for every figure
 //! (fixtures from tests/reference/generate.py).

@@ -2,7 +2,7 @@
 //! typed helper per endpoint.
 
 use std::io::{BufRead, BufReader};
-use std::path::{Path, PathBuf};
+use std::path::Path;
 use std::process::{Child, Command, Stdio};
 use std::time::{Duration, Instant};
 
@@ -11,7 +11,6 @@ use serde_json::Value;
 pub struct Server {
     child: Option<Child>,
     pub base: String,
-    pub data_dir: PathBuf,
     _dir: Option<tempfile::TempDir>,
     client: reqwest::Client,
 }
@@ -60,7 +59,6 @@ impl Server {
         Server {
             child: Some(child),
             base,
-            data_dir: data_dir.to_owned(),
             _dir: None,
             client: reqwest::Client::new(),
         }

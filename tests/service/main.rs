@@ -1,0 +1,12 @@
+#![allow(unreachable_pub)]
+//! The service end to end: the real binary on a free port, spoken to over HTTP.
+
+#[path = "../support/mod.rs"]
+mod support;
+
+mod errors;
+mod evaluations;
+mod harness;
+mod openapi;
+mod resilience;
+mod uploads;
