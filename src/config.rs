@@ -44,6 +44,6 @@ impl ServeArgs {
     }
 
     pub fn eval_memory_bytes(&self) -> Option<u64> {
-        (self.eval_memory > 0).then(|| self.eval_memory << 20)
+        (self.eval_memory > 0).then_some(self.eval_memory << 20)
     }
 }

@@ -12,7 +12,10 @@ use crate::store::StoreError;
 pub enum AppError {
     /// A malformed request: bad JSON, a query parameter that does not parse.
     #[error("{detail}")]
-    BadRequest { detail: String, field: Option<String> },
+    BadRequest {
+        detail: String,
+        field: Option<String>,
+    },
     /// An unknown id in the path.
     #[error("{0}")]
     NotFound(String),
@@ -23,7 +26,10 @@ pub enum AppError {
     TooLarge(String),
     /// Well-formed but unusable input: not ONNX, a set that does not fit.
     #[error("{detail}")]
-    Unprocessable { detail: String, field: Option<String> },
+    Unprocessable {
+        detail: String,
+        field: Option<String>,
+    },
     /// Busy: the queue or a child could not be started; try again.
     #[error("{0}")]
     Unavailable(String),
@@ -34,11 +40,17 @@ pub enum AppError {
 
 impl AppError {
     pub fn bad_request(detail: impl Into<String>, field: Option<&str>) -> Self {
-        AppError::BadRequest { detail: detail.into(), field: field.map(str::to_string) }
+        AppError::BadRequest {
+            detail: detail.into(),
+            field: field.map(str::to_string),
+        }
     }
 
     pub fn unprocessable(detail: impl Into<String>, field: Option<&str>) -> Self {
-        AppError::Unprocessable { detail: detail.into(), field: field.map(str::to_string) }
+        AppError::Unprocessable {
+            detail: detail.into(),
+            field: field.map(str::to_string),
+        }
     }
 
     pub fn status_code(&self) -> u16 {

@@ -4,7 +4,11 @@ use clap::{Parser, Subcommand};
 use tracing_subscriber::EnvFilter;
 
 #[derive(Parser)]
-#[command(name = "proctor", version, about = "Scores distilled students against their teacher and gates their release")]
+#[command(
+    name = "proctor",
+    version,
+    about = "Scores distilled students against their teacher and gates their release"
+)]
 struct Cli {
     #[command(subcommand)]
     command: Command,
@@ -21,7 +25,9 @@ enum Command {
 
 fn main() -> anyhow::Result<()> {
     tracing_subscriber::fmt()
-        .with_env_filter(EnvFilter::try_from_default_env().unwrap_or_else(|_| EnvFilter::new("info")))
+        .with_env_filter(
+            EnvFilter::try_from_default_env().unwrap_or_else(|_| EnvFilter::new("info")),
+        )
         .with_writer(std::io::stderr)
         .init();
     match Cli::parse().command {

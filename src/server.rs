@@ -11,18 +11,27 @@ use crate::store::Store;
 pub async fn serve(args: ServeArgs) -> anyhow::Result<()> {
     std::fs::create_dir_all(&args.data_dir)
         .with_context(|| format!("creating the data dir {}", args.data_dir.display()))?;
-    let store = Store::open(&args.database_url(), &args.data_dir).await.context("opening the store")?;
+    let store = Store::open(&args.database_url(), &args.data_dir)
+        .await
+        .context("opening the store")?;
     let config = QueueConfig {
         exe: std::env::current_exe().context("finding this program")?,
-        limits: Limits { memory_bytes: args.eval_memory_bytes(), wall_time: args.eval_timeout() },
+        limits: Limits {
+            memory_bytes: args.eval_memory_bytes(),
+            wall_time: args.eval_timeout(),
+        },
         workers: args.workers,
         offline_threads: args.offline_threads,
     };
-    let queue = Queue::start(store.clone(), config).await.context("starting the queue")?;
+    let queue = Queue::start(store.clone(), config)
+        .await
+        .context("starting the queue")?;
     let app = App {
         store: store.clone(),
         queue: queue.clone(),
-        config: ServiceConfig { max_upload_bytes: args.max_upload_bytes },
+        config: ServiceConfig {
+            max_upload_bytes: args.max_upload_bytes,
+        },
     };
     let listener = tokio::net::TcpListener::bind(args.listen)
         .await

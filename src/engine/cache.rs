@@ -37,7 +37,8 @@ impl TeacherCache {
 
     fn stem(&self, teacher_sha: &str, set_sha: &str, output: Option<&str>) -> PathBuf {
         let out = hex::encode(Sha256::digest(output.unwrap_or("").as_bytes()));
-        self.dir.join(format!("{teacher_sha}-{set_sha}-{}", &out[..16]))
+        self.dir
+            .join(format!("{teacher_sha}-{set_sha}-{}", &out[..16]))
     }
 
     pub fn get(
@@ -50,7 +51,10 @@ impl TeacherCache {
         let stem = self.stem(teacher_sha, set_sha, output);
         let raw = read_f64_matrix(&stem.with_extension("npy")).ok()?;
         let times = read_times(&stem.with_extension("json"));
-        Some(Cached { raw, engine_time: times.get(&batch).map(|s| Duration::from_secs_f64(*s)) })
+        Some(Cached {
+            raw,
+            engine_time: times.get(&batch).map(|s| Duration::from_secs_f64(*s)),
+        })
     }
 
     pub fn put(
@@ -77,20 +81,28 @@ impl TeacherCache {
 }
 
 fn read_times(path: &Path) -> BTreeMap<usize, f64> {
-    fs::read(path).ok().and_then(|b| serde_json::from_slice(&b).ok()).unwrap_or_default()
+    fs::read(path)
+        .ok()
+        .and_then(|b| serde_json::from_slice(&b).ok())
+        .unwrap_or_default()
 }
 
 fn write_atomic(path: &Path, bytes: &[u8]) -> EngineResult<()> {
     let tmp = path.with_extension(format!("tmp-{}", std::process::id()));
     let mut f = fs::File::create(&tmp).map_err(EngineError::io("writing the teacher cache"))?;
-    f.write_all(bytes).map_err(EngineError::io("writing the teacher cache"))?;
-    f.sync_all().map_err(EngineError::io("writing the teacher cache"))?;
+    f.write_all(bytes)
+        .map_err(EngineError::io("writing the teacher cache"))?;
+    f.sync_all()
+        .map_err(EngineError::io("writing the teacher cache"))?;
     fs::rename(&tmp, path).map_err(EngineError::io("writing the teacher cache"))
 }
 
 /// An NPY 1.0 float64 C-order array, header padded to 64 bytes as numpy does.
 fn f64_matrix_bytes(m: &Logits) -> Vec<u8> {
-    let dict = format!("{{'descr': '<f8', 'fortran_order': False, 'shape': ({}, {}), }}", m.n, m.c);
+    let dict = format!(
+        "{{'descr': '<f8', 'fortran_order': False, 'shape': ({}, {}), }}",
+        m.n, m.c
+    );
     let unpadded = 10 + dict.len() + 1;
     let pad = (64 - unpadded % 64) % 64;
     let header = format!("{dict}{}\n", " ".repeat(pad));
@@ -107,7 +119,9 @@ fn f64_matrix_bytes(m: &Logits) -> Vec<u8> {
 fn read_f64_matrix(path: &Path) -> EngineResult<Logits> {
     match npy::read_f64(path)? {
         (shape, data) if shape.len() == 2 && shape[1] > 0 => Ok(Logits::from_rows(shape[1], data)),
-        _ => Err(EngineError::InvalidDataset("malformed teacher cache entry".into())),
+        _ => Err(EngineError::InvalidDataset(
+            "malformed teacher cache entry".into(),
+        )),
     }
 }
 
@@ -120,11 +134,19 @@ mod tests {
         let dir = tempfile::tempdir().unwrap();
         let cache = TeacherCache::new(dir.path());
         let raw = Logits::from_rows(3, vec![0.1, -2.5, 1e-300, 7.0, f64::MAX, -0.0]);
-        cache.put("aa", "bb", None, 32, &raw, Duration::from_millis(5)).unwrap();
+        cache
+            .put("aa", "bb", None, 32, &raw, Duration::from_millis(5))
+            .unwrap();
         let hit = cache.get("aa", "bb", None, 32).unwrap();
         assert_eq!(hit.raw, raw);
         assert_eq!(hit.engine_time, Some(Duration::from_millis(5)));
-        assert!(cache.get("aa", "bb", None, 16).unwrap().engine_time.is_none());
+        assert!(
+            cache
+                .get("aa", "bb", None, 16)
+                .unwrap()
+                .engine_time
+                .is_none()
+        );
         assert!(cache.get("aa", "bb", Some("probs"), 32).is_none());
     }
 }

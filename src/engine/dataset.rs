@@ -71,13 +71,24 @@ impl EvalSet {
     pub fn open(path: &Path) -> EngineResult<EvalSet> {
         let mut file = File::open(path).map_err(EngineError::io("opening the evaluation set"))?;
         let mut magic = [0u8; 4];
-        let n = file.read(&mut magic).map_err(EngineError::io("reading the evaluation set"))?;
+        let n = file
+            .read(&mut magic)
+            .map_err(EngineError::io("reading the evaluation set"))?;
         let members = match &magic[..n] {
             [0x93, b'N', b'U', b'M'] => vec![npy_member(path)?],
             [b'P', b'K', 3, 4] | [b'P', b'K', 5, 6] => npz_members(path)?,
-            _ => return Err(invalid("the evaluation set is neither an .npy array nor an .npz archive")),
+            _ => {
+                return Err(invalid(
+                    "the evaluation set is neither an .npy array nor an .npz archive",
+                ));
+            }
         };
-        let mut set = EvalSet { path: path.to_owned(), members, samples: 0, labels: None };
+        let mut set = EvalSet {
+            path: path.to_owned(),
+            members,
+            samples: 0,
+            labels: None,
+        };
         set.samples = set.check_lengths()?;
         set.labels = set.read_labels()?;
         Ok(set)
@@ -113,7 +124,11 @@ impl EvalSet {
     }
 
     fn read_labels(&self) -> EngineResult<Option<Vec<i64>>> {
-        let Some(ix) = self.members.iter().position(|m| m.name.as_deref() == Some(LABELS)) else {
+        let Some(ix) = self
+            .members
+            .iter()
+            .position(|m| m.name.as_deref() == Some(LABELS))
+        else {
             return Ok(None);
         };
         let header = &self.members[ix].header;
@@ -135,9 +150,9 @@ impl EvalSet {
         (0..self.samples)
             .map(|i| match npy::element(&raw, header, i) {
                 Scalar::Int(v) if (0..=i64::MAX as i128).contains(&v) => Ok(v as i64),
-                Scalar::Int(v) => {
-                    Err(invalid(format!("label {v} at sample {i} is negative or too large")))
-                }
+                Scalar::Int(v) => Err(invalid(format!(
+                    "label {v} at sample {i} is negative or too large"
+                ))),
                 Scalar::Float(_) => unreachable!("integer dtype checked above"),
             })
             .collect::<EngineResult<Vec<_>>>()
@@ -170,7 +185,10 @@ impl EvalSet {
 
     /// The arrays that may feed model inputs (all but `labels`).
     pub(crate) fn feature_members(&self) -> impl Iterator<Item = (usize, &Member)> {
-        self.members.iter().enumerate().filter(|(_, m)| m.name.as_deref() != Some(LABELS))
+        self.members
+            .iter()
+            .enumerate()
+            .filter(|(_, m)| m.name.as_deref() != Some(LABELS))
     }
 
     pub(crate) fn member(&self, ix: usize) -> &Member {
@@ -185,20 +203,32 @@ impl EvalSet {
 
 fn open_stream(path: &Path, m: &Member) -> EngineResult<RowStream> {
     let mut file = File::open(path).map_err(EngineError::io("opening the evaluation set"))?;
-    file.seek(SeekFrom::Start(m.offset)).map_err(EngineError::io("seeking in the set"))?;
+    file.seek(SeekFrom::Start(m.offset))
+        .map_err(EngineError::io("seeking in the set"))?;
     let raw = BufReader::with_capacity(1 << 16, file.take(m.stored_len));
-    let mut reader: Box<dyn Read + Send> =
-        if m.deflated { Box::new(DeflateDecoder::new(raw)) } else { Box::new(raw) };
+    let mut reader: Box<dyn Read + Send> = if m.deflated {
+        Box::new(DeflateDecoder::new(raw))
+    } else {
+        Box::new(raw)
+    };
     let header = npy::read_header(&mut reader).map_err(invalid)?;
     Ok(RowStream { reader, header })
 }
 
 fn npy_member(path: &Path) -> EngineResult<Member> {
-    let len = std::fs::metadata(path).map_err(EngineError::io("reading the set"))?.len();
+    let len = std::fs::metadata(path)
+        .map_err(EngineError::io("reading the set"))?
+        .len();
     let mut r = BufReader::new(File::open(path).map_err(EngineError::io("opening the set"))?);
     let header = npy::read_header(&mut r).map_err(invalid)?;
     check_size(&header, len, None)?;
-    Ok(Member { name: None, header, offset: 0, stored_len: len, deflated: false })
+    Ok(Member {
+        name: None,
+        header,
+        offset: 0,
+        stored_len: len,
+        deflated: false,
+    })
 }
 
 fn npz_members(path: &Path) -> EngineResult<Vec<Member>> {
@@ -215,7 +245,9 @@ fn npz_members(path: &Path) -> EngineResult<Vec<Member>> {
         }
         let file_name = entry.name().to_string();
         let Some(name) = file_name.strip_suffix(".npy") else {
-            return Err(invalid(format!("'{file_name}' in the archive is not an .npy array")));
+            return Err(invalid(format!(
+                "'{file_name}' in the archive is not an .npy array"
+            )));
         };
         if entry.encrypted() {
             return Err(invalid(format!("array '{name}' is encrypted")));
@@ -231,7 +263,11 @@ fn npz_members(path: &Path) -> EngineResult<Vec<Member>> {
         };
         let member = Member {
             name: Some(name.to_string()),
-            header: Header { dtype: Dtype::Bool, big_endian: false, shape: vec![] },
+            header: Header {
+                dtype: Dtype::Bool,
+                big_endian: false,
+                shape: vec![],
+            },
             offset: entry.data_start(),
             stored_len: entry.compressed_size(),
             deflated,
@@ -256,9 +292,12 @@ fn npz_members(path: &Path) -> EngineResult<Vec<Member>> {
 /// Refuses arrays whose header promises more data than the file holds, so a
 /// truncated upload fails at once rather than mid-evaluation.
 fn check_size(header: &Header, available: u64, name: Option<&str>) -> EngineResult<()> {
-    let want = header.shape.iter().try_fold(header.dtype.size() as u64, |acc, &d| {
-        acc.checked_mul(d as u64)
-    });
+    let want = header
+        .shape
+        .iter()
+        .try_fold(header.dtype.size() as u64, |acc, &d| {
+            acc.checked_mul(d as u64)
+        });
     match want {
         Some(w) if w <= available => Ok(()),
         _ => Err(invalid(format!(

@@ -38,8 +38,14 @@ impl Environment {
         Environment {
             cpu: cpu_model(),
             logical_cores: logical_cores(),
-            threads: Threads { offline: offline_threads, latency: 1 },
-            engine: EngineVersion { name: "tract".into(), version: TRACT_VERSION.into() },
+            threads: Threads {
+                offline: offline_threads,
+                latency: 1,
+            },
+            engine: EngineVersion {
+                name: "tract".into(),
+                version: TRACT_VERSION.into(),
+            },
             service_version: env!("CARGO_PKG_VERSION").into(),
             os: os_name(),
         }
@@ -59,11 +65,13 @@ fn cpu_model() -> String {
 }
 
 fn os_name() -> String {
-    let pretty = std::fs::read_to_string("/etc/os-release").ok().and_then(|text| {
-        text.lines()
-            .find_map(|l| l.strip_prefix("PRETTY_NAME="))
-            .map(|v| v.trim_matches('"').to_string())
-    });
+    let pretty = std::fs::read_to_string("/etc/os-release")
+        .ok()
+        .and_then(|text| {
+            text.lines()
+                .find_map(|l| l.strip_prefix("PRETTY_NAME="))
+                .map(|v| v.trim_matches('"').to_string())
+        });
     let base = format!("{} {}", std::env::consts::OS, std::env::consts::ARCH);
     match pretty {
         Some(p) => format!("{base} ({p})"),

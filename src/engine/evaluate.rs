@@ -20,7 +20,9 @@ use super::feed::{Feed, bind};
 use super::gates::judge;
 use super::latency::{self, Entry};
 use super::logits::{Logits, OutputKind, OutputKindChoice, to_logits};
-use super::metrics::accuracy::{Accuracy, StudentAccuracy, StudentInputs, accuracy, student_accuracy};
+use super::metrics::accuracy::{
+    Accuracy, StudentAccuracy, StudentInputs, accuracy, student_accuracy,
+};
 use super::metrics::fidelity::{Fidelity, fidelity};
 use super::model::Model;
 use super::offline::{self, Offline, Prepared};
@@ -156,16 +158,20 @@ pub fn prepare(job: &Job) -> EngineResult<Setup> {
             return Ok(ix);
         }
         let model = Model::load(&m.path).map_err(|e| labelled(&m.name, e))?;
-        let output =
-            model.output_index(job.settings.output.as_deref()).map_err(|e| labelled(&m.name, e))?;
+        let output = model
+            .output_index(job.settings.output.as_deref())
+            .map_err(|e| labelled(&m.name, e))?;
         let binding = bind(&model, &set, &m.name)?;
         models.push(Prepared::new(m.name.clone(), model, binding, output)?);
         by_sha.insert(m.sha256.clone(), models.len() - 1);
         Ok(models.len() - 1)
     };
     let teacher = index(&job.teacher, &mut models)?;
-    let students =
-        job.students.iter().map(|s| index(s, &mut models)).collect::<EngineResult<Vec<_>>>()?;
+    let students = job
+        .students
+        .iter()
+        .map(|s| index(s, &mut models))
+        .collect::<EngineResult<Vec<_>>>()?;
     let c = models[teacher].classes;
     for (&ix, s) in students.iter().zip(&job.students) {
         if models[ix].classes != c {
@@ -176,13 +182,21 @@ pub fn prepare(job: &Job) -> EngineResult<Setup> {
         }
     }
     if let Some(labels) = set.labels()
-        && let Some((i, y)) = labels.iter().enumerate().find(|(_, y)| **y as u64 >= c as u64)
+        && let Some((i, y)) = labels
+            .iter()
+            .enumerate()
+            .find(|(_, y)| **y as u64 >= c as u64)
     {
         return Err(EngineError::Mismatch(format!(
             "label {y} at sample {i} is outside [0, {c}): the models score {c} classes"
         )));
     }
-    Ok(Setup { set, models, teacher, students })
+    Ok(Setup {
+        set,
+        models,
+        teacher,
+        students,
+    })
 }
 
 pub fn evaluate(job: &Job, options: &Options, hooks: &Hooks<'_>) -> EngineResult<Outcome> {
@@ -202,27 +216,49 @@ pub fn evaluate(job: &Job, options: &Options, hooks: &Hooks<'_>) -> EngineResult
     let output = job.settings.output.as_deref();
     let cached = cache
         .as_ref()
-        .and_then(|c| c.get(&job.teacher.sha256, &job.dataset.sha256, output, teacher_batch))
+        .and_then(|c| {
+            c.get(
+                &job.teacher.sha256,
+                &job.dataset.sha256,
+                output,
+                teacher_batch,
+            )
+        })
         .filter(|hit| hit.raw.n == n && hit.raw.c == setup.models[setup.teacher].classes);
     let cached_teacher = cached.and_then(|hit| {
-        hit.engine_time.map(|engine_time| Offline { raw: hit.raw, engine_time })
+        hit.engine_time.map(|engine_time| Offline {
+            raw: hit.raw,
+            engine_time,
+        })
     });
     timings.teacher_from_cache = cached_teacher.is_some();
 
     hooks.cpu.shared()?;
     let started = Instant::now();
-    let mut results =
-        run_offline(&setup, batch, threads, cached_teacher.is_none(), hooks)?;
+    let mut results = run_offline(&setup, batch, threads, cached_teacher.is_none(), hooks)?;
     timings.offline_wall = started.elapsed();
     if let Some(hit) = cached_teacher {
         results[setup.teacher] = Some(hit);
     } else if let (Some(cache), Some(r)) = (&cache, &results[setup.teacher]) {
-        cache.put(&job.teacher.sha256, &job.dataset.sha256, output, teacher_batch, &r.raw, r.engine_time)?;
+        cache.put(
+            &job.teacher.sha256,
+            &job.dataset.sha256,
+            output,
+            teacher_batch,
+            &r.raw,
+            r.engine_time,
+        )?;
     }
-    let results: Vec<Offline> =
-        results.into_iter().map(|r| r.expect("every model ran or was cached")).collect();
-    timings.offline_engine =
-        setup.models.iter().zip(&results).map(|(m, r)| (m.label.clone(), r.engine_time)).collect();
+    let results: Vec<Offline> = results
+        .into_iter()
+        .map(|r| r.expect("every model ran or was cached"))
+        .collect();
+    timings.offline_engine = setup
+        .models
+        .iter()
+        .zip(&results)
+        .map(|(m, r)| (m.label.clone(), r.engine_time))
+        .collect();
 
     let started = Instant::now();
     (hooks.progress)(Stage::Scoring, 0, job.students.len() as u64);
@@ -235,7 +271,14 @@ pub fn evaluate(job: &Job, options: &Options, hooks: &Hooks<'_>) -> EngineResult
     timings.latency_wall = started.elapsed();
 
     let throughput = |ix: usize| n as f64 / results[ix].engine_time.as_secs_f64().max(1e-12);
-    let report = assemble(job, &setup, scores, &latencies, throughput, threads.min(setup.models.len()));
+    let report = assemble(
+        job,
+        &setup,
+        scores,
+        &latencies,
+        throughput,
+        threads.min(setup.models.len()),
+    );
     Ok(Outcome { report, timings })
 }
 
@@ -248,8 +291,9 @@ fn run_offline(
     hooks: &Hooks<'_>,
 ) -> EngineResult<Vec<Option<Offline>>> {
     let n = setup.set.samples() as u64;
-    let todo: Vec<usize> =
-        (0..setup.models.len()).filter(|&i| run_teacher || i != setup.teacher).collect();
+    let todo: Vec<usize> = (0..setup.models.len())
+        .filter(|&i| run_teacher || i != setup.teacher)
+        .collect();
     let total = n * todo.len() as u64;
     let done = AtomicU64::new(0);
     let next = AtomicUsize::new(0);
@@ -267,7 +311,13 @@ fn run_offline(
             scope.spawn(|| {
                 while let Some(&ix) = todo.get(next.fetch_add(1, Ordering::Relaxed)) {
                     let m = &setup.models[ix];
-                    let r = offline::run(m, &setup.set, m.offline_batch(batch, n as usize), &stop, &tick);
+                    let r = offline::run(
+                        m,
+                        &setup.set,
+                        m.offline_batch(batch, n as usize),
+                        &stop,
+                        &tick,
+                    );
                     if r.is_err() {
                         failed.store(true, Ordering::Relaxed);
                     }
@@ -335,7 +385,11 @@ fn score(job: &Job, setup: &Setup, results: &[Offline], hooks: &Hooks<'_>) -> Sc
             (kind, fid, acc)
         })
         .collect();
-    Scores { teacher_kind, teacher_accuracy, students }
+    Scores {
+        teacher_kind,
+        teacher_accuracy,
+        students,
+    }
 }
 
 /// Samples cycled through in the latency rounds: enough to vary the input,
@@ -345,19 +399,33 @@ const LATENCY_SAMPLES: usize = 32;
 /// Timings per entry: the teacher first, then each student in request order.
 fn measure_latency(job: &Job, setup: &Setup, hooks: &Hooks<'_>) -> EngineResult<Vec<Vec<f64>>> {
     let lat = job.settings.latency;
-    let k = setup.set.samples().min(LATENCY_SAMPLES).min(lat.iterations as usize).max(1);
+    let k = setup
+        .set
+        .samples()
+        .min(LATENCY_SAMPLES)
+        .min(lat.iterations as usize)
+        .max(1);
     let samples = setup
         .models
         .iter()
         .map(|m| {
             let mut feed = Feed::open(&setup.set, &m.binding)?;
-            (0..k).map(|_| feed.next_batch(1)).collect::<EngineResult<Vec<TVec<TValue>>>>()
+            (0..k)
+                .map(|_| feed.next_batch(1))
+                .collect::<EngineResult<Vec<TVec<TValue>>>>()
         })
         .collect::<EngineResult<Vec<_>>>()?;
-    let order: Vec<usize> = std::iter::once(setup.teacher).chain(setup.students.iter().copied()).collect();
+    let order: Vec<usize> = std::iter::once(setup.teacher)
+        .chain(setup.students.iter().copied())
+        .collect();
     let entries = order
         .iter()
-        .map(|&ix| Ok(Entry { plan: setup.models[ix].plan(1)?, samples: &samples[ix] }))
+        .map(|&ix| {
+            Ok(Entry {
+                plan: setup.models[ix].plan(1)?,
+                samples: &samples[ix],
+            })
+        })
         .collect::<EngineResult<Vec<_>>>()?;
     (hooks.progress)(Stage::Warmup, 0, 1);
     let rounds = lat.iterations as u64;
@@ -369,7 +437,11 @@ fn measure_latency(job: &Job, setup: &Setup, hooks: &Hooks<'_>) -> EngineResult<
 }
 
 fn summary(m: &super::evaluate::ModelRef) -> ModelSummary {
-    ModelSummary { id: m.id, name: m.name.clone(), sha256: m.sha256.clone() }
+    ModelSummary {
+        id: m.id,
+        name: m.name.clone(),
+        sha256: m.sha256.clone(),
+    }
 }
 
 fn assemble(
@@ -386,7 +458,9 @@ fn assemble(
     let teacher_size = TeacherSize {
         bytes: job.teacher.bytes,
         parameters: teacher_model.model.info.parameters,
-        macs: teacher_model.model.macs_per_sample(&teacher_model.binding.dims),
+        macs: teacher_model
+            .model
+            .macs_per_sample(&teacher_model.binding.dims),
     };
     let teacher_latency = latency::summarize(&latencies[0], throughput(setup.teacher));
     let mut candidates: Vec<Candidate> = job
@@ -413,7 +487,10 @@ fn assemble(
                     parameter_ratio: (teacher_size.parameters > 0)
                         .then(|| parameters as f64 / teacher_size.parameters as f64),
                 },
-                latency: StudentLatency { speedup: teacher_latency.p50_ms / own.p50_ms, own },
+                latency: StudentLatency {
+                    speedup: teacher_latency.p50_ms / own.p50_ms,
+                    own,
+                },
                 pareto_optimal: false,
                 gates: Default::default(),
             };
@@ -469,9 +546,18 @@ pub fn model_scores(
     let set = EvalSet::open(set)?;
     let m = Model::load(model)?;
     let out = m.output_index(output)?;
-    let label = model.file_name().map_or("model".into(), |f| f.to_string_lossy().into_owned());
+    let label = model
+        .file_name()
+        .map_or("model".into(), |f| f.to_string_lossy().into_owned());
     let binding = bind(&m, &set, &label)?;
     let p = Prepared::new(label, m, binding, out)?;
     let never = || false;
-    Ok(offline::run(&p, &set, p.offline_batch(batch, set.samples()), &never, &|_| {})?.raw)
+    Ok(offline::run(
+        &p,
+        &set,
+        p.offline_batch(batch, set.samples()),
+        &never,
+        &|_| {},
+    )?
+    .raw)
 }

@@ -40,8 +40,10 @@ fn mismatch(msg: String) -> EngineError {
 /// Matches arrays to `model`'s inputs by name (a one-input model takes the
 /// set's single non-label array whatever its name) and checks that each fits.
 pub fn bind(model: &Model, set: &EvalSet, label: &str) -> EngineResult<Binding> {
-    let features: Vec<(usize, Option<&str>)> =
-        set.feature_members().map(|(i, m)| (i, m.name.as_deref())).collect();
+    let features: Vec<(usize, Option<&str>)> = set
+        .feature_members()
+        .map(|(i, m)| (i, m.name.as_deref()))
+        .collect();
     let inputs = &model.info.inputs;
     if let BatchAxis::Fixed(b) = model.batch
         && b != 1
@@ -67,12 +69,20 @@ pub fn bind(model: &Model, set: &EvalSet, label: &str) -> EngineResult<Binding> 
                         "model '{label}' needs an array named '{}' and the set has none \
                          (its arrays: {})",
                         spec.name,
-                        if names.is_empty() { "one unnamed array".into() } else { names.join(", ") }
+                        if names.is_empty() {
+                            "one unnamed array".into()
+                        } else {
+                            names.join(", ")
+                        }
                     ))
                 })?
         };
         let header = &set.member(member).header;
-        let array = set.member(member).name.clone().unwrap_or_else(|| "the array".into());
+        let array = set
+            .member(member)
+            .name
+            .clone()
+            .unwrap_or_else(|| "the array".into());
         let target = model.input_types[ix];
         check_dtype(header.dtype, target, &array, &spec.name)?;
         if header.shape.len() != spec.shape.len() {
@@ -104,7 +114,10 @@ pub fn bind(model: &Model, set: &EvalSet, label: &str) -> EngineResult<Binding> 
             row_shape: header.shape[1..].to_vec(),
         });
     }
-    Ok(Binding { inputs: bound, dims })
+    Ok(Binding {
+        inputs: bound,
+        dims,
+    })
 }
 
 fn check_dtype(src: Dtype, target: DatumType, array: &str, input: &str) -> EngineResult<()> {
@@ -139,7 +152,12 @@ impl<'a> Feed<'a> {
             .iter()
             .map(|b| set.stream(b.member))
             .collect::<EngineResult<_>>()?;
-        Ok(Feed { binding, streams, buf: Vec::new(), next_sample: 0 })
+        Ok(Feed {
+            binding,
+            streams,
+            buf: Vec::new(),
+            next_sample: 0,
+        })
     }
 
     /// The next `rows` samples as one tensor per model input.
@@ -149,7 +167,9 @@ impl<'a> Feed<'a> {
             stream.read(rows, &mut self.buf)?;
             let mut shape = vec![rows];
             shape.extend_from_slice(&b.row_shape);
-            out.push(convert(&self.buf, &stream.header, b, &shape, self.next_sample)?.into_tvalue());
+            out.push(
+                convert(&self.buf, &stream.header, b, &shape, self.next_sample)?.into_tvalue(),
+            );
         }
         self.next_sample += rows;
         Ok(out)
@@ -190,14 +210,20 @@ fn convert(
     }
     match b.target {
         DatumType::F32 | DatumType::F16 => {
-            let (limit, exact) =
-                if b.target == DatumType::F16 { (65504.0, 2048) } else { (f32::MAX as f64, 1 << 24) };
+            let (limit, exact) = if b.target == DatumType::F16 {
+                (65504.0, 2048)
+            } else {
+                (f32::MAX as f64, 1 << 24)
+            };
             let v = (0..count)
                 .map(|i| as_float(i, limit, exact).map(|x| x as f32))
                 .collect::<EngineResult<Vec<f32>>>()?;
             let t = Tensor::from_shape(shape, &v).map_err(tensor_err)?;
             if b.target == DatumType::F16 {
-                return t.cast_to_dt(DatumType::F16).map(|c| c.into_owned()).map_err(tensor_err);
+                return t
+                    .cast_to_dt(DatumType::F16)
+                    .map(|c| c.into_owned())
+                    .map_err(tensor_err);
             }
             Ok(t)
         }
@@ -208,8 +234,9 @@ fn convert(
             Tensor::from_shape(shape, &v).map_err(tensor_err)
         }
         DatumType::Bool => {
-            let v: Vec<bool> =
-                (0..count).map(|i| npy::element(raw, header, i) != Scalar::Int(0)).collect();
+            let v: Vec<bool> = (0..count)
+                .map(|i| npy::element(raw, header, i) != Scalar::Int(0))
+                .collect();
             Tensor::from_shape(shape, &v).map_err(tensor_err)
         }
         target => {
@@ -225,7 +252,9 @@ fn convert(
             if target == DatumType::I64 {
                 return Ok(t);
             }
-            t.cast_to_dt(target).map(|c| c.into_owned()).map_err(tensor_err)
+            t.cast_to_dt(target)
+                .map(|c| c.into_owned())
+                .map_err(tensor_err)
         }
     }
 }

@@ -105,17 +105,28 @@ pub struct GateOutcome {
 }
 
 /// The estimate and the judged value of one gate for one candidate.
-fn figures(gate: GateName, c: &Candidate, samples: u64, z: Option<f64>) -> (Option<f64>, Option<f64>) {
+fn figures(
+    gate: GateName,
+    c: &Candidate,
+    samples: u64,
+    z: Option<f64>,
+) -> (Option<f64>, Option<f64>) {
     let acc = c.accuracy.as_ref();
     match gate {
         GateName::MinAgreement => {
             let est = c.fidelity.agreement;
-            (Some(est), Some(z.map_or(est, |z| wilson(c.fidelity.agreed, samples, z)[0])))
+            (
+                Some(est),
+                Some(z.map_or(est, |z| wilson(c.fidelity.agreed, samples, z)[0])),
+            )
         }
         GateName::MaxKl => (Some(c.fidelity.kl), Some(c.fidelity.kl)),
         GateName::MinTop1 => acc.map_or((None, None), |a| {
             let est = a.own.top1;
-            (Some(est), Some(z.map_or(est, |z| wilson(a.own.correct, samples, z)[0])))
+            (
+                Some(est),
+                Some(z.map_or(est, |z| wilson(a.own.correct, samples, z)[0])),
+            )
         }),
         GateName::MaxTop1Drop => acc.map_or((None, None), |a| {
             let est = -a.delta;
@@ -125,14 +136,20 @@ fn figures(gate: GateName, c: &Candidate, samples: u64, z: Option<f64>) -> (Opti
         GateName::MinRetention => acc.map_or((None, None), |a| (a.retention, a.retention)),
         GateName::MaxNegativeFlipRate => acc.map_or((None, None), |a| {
             let est = a.negative_flip_rate;
-            (Some(est), Some(z.map_or(est, |z| wilson(a.lost, samples, z)[1])))
+            (
+                Some(est),
+                Some(z.map_or(est, |z| wilson(a.lost, samples, z)[1])),
+            )
         }),
         GateName::MaxEce => acc.map_or((None, None), |a| (Some(a.own.ece), Some(a.own.ece))),
         GateName::MaxP90Ms => (Some(c.latency.own.p90_ms), Some(c.latency.own.p90_ms)),
         GateName::MinSpeedup => (Some(c.latency.speedup), Some(c.latency.speedup)),
         GateName::MaxBytes => (Some(c.size.bytes as f64), Some(c.size.bytes as f64)),
         GateName::MaxSizeRatio => (Some(c.size.size_ratio), Some(c.size.size_ratio)),
-        GateName::MaxParameters => (Some(c.size.parameters as f64), Some(c.size.parameters as f64)),
+        GateName::MaxParameters => (
+            Some(c.size.parameters as f64),
+            Some(c.size.parameters as f64),
+        ),
     }
 }
 
@@ -145,17 +162,31 @@ pub fn judge(gates: &Gates, candidate: &Candidate, samples: u64) -> GateOutcome 
         .map(|&(gate, threshold)| {
             let (estimate, judged) = figures(gate, candidate, samples, z);
             let passed = judged.is_some_and(|v| {
-                if gate.is_floor() { v >= threshold } else { v <= threshold }
+                if gate.is_floor() {
+                    v >= threshold
+                } else {
+                    v <= threshold
+                }
             });
             let reason = match (gate, judged) {
-                (GateName::MinRetention, None) => Some(
-                    "retention is undefined because the teacher's top1 is 0".to_string(),
-                ),
+                (GateName::MinRetention, None) => {
+                    Some("retention is undefined because the teacher's top1 is 0".to_string())
+                }
                 (_, None) => Some(format!("{} needs labels", gate.as_str())),
                 _ => None,
             };
-            Check { gate: gate.as_str().to_string(), threshold, judged, estimate, passed, reason }
+            Check {
+                gate: gate.as_str().to_string(),
+                threshold,
+                judged,
+                estimate,
+                passed,
+                reason,
+            }
         })
         .collect();
-    GateOutcome { passed: checks.iter().all(|c| c.passed), checks }
+    GateOutcome {
+        passed: checks.iter().all(|c| c.passed),
+        checks,
+    }
 }

@@ -33,12 +33,20 @@ pub struct Logits {
 
 impl Logits {
     pub fn new(c: usize) -> Self {
-        Logits { n: 0, c, data: Vec::new() }
+        Logits {
+            n: 0,
+            c,
+            data: Vec::new(),
+        }
     }
 
     pub fn from_rows(c: usize, data: Vec<f64>) -> Self {
         assert_eq!(data.len() % c, 0, "data is not a whole number of rows");
-        Logits { n: data.len() / c, c, data }
+        Logits {
+            n: data.len() / c,
+            c,
+            data,
+        }
     }
 
     pub fn row(&self, i: usize) -> &[f64] {
@@ -80,8 +88,14 @@ pub fn class_count(shape: &[usize]) -> EngineResult<usize> {
 /// row sums to 1 within 1e-3, else logits.
 pub fn detect(raw: &Logits) -> OutputKind {
     let in_range = raw.data.iter().all(|&v| (0.0..=1.0).contains(&v));
-    let normalized = raw.rows().all(|r| (r.iter().sum::<f64>() - 1.0).abs() <= 1e-3);
-    if in_range && normalized { OutputKind::Probabilities } else { OutputKind::Logits }
+    let normalized = raw
+        .rows()
+        .all(|r| (r.iter().sum::<f64>() - 1.0).abs() <= 1e-3);
+    if in_range && normalized {
+        OutputKind::Probabilities
+    } else {
+        OutputKind::Logits
+    }
 }
 
 /// Applies a request's choice to a model's whole raw output.

@@ -92,7 +92,9 @@ pub(crate) fn guarded<T>(what: &str, f: impl FnOnce() -> TractResult<T>) -> Engi
                     "{what}: the model needs more memory than an evaluation may use ({msg})"
                 )));
             }
-            Err(invalid(format!("{what}: the engine failed on this graph ({msg})")))
+            Err(invalid(format!(
+                "{what}: the engine failed on this graph ({msg})"
+            )))
         }
     }
 }
@@ -107,7 +109,10 @@ impl Model {
         let proto = guarded("not an ONNX model", || {
             tract_onnx::onnx().proto_model_for_read(&mut &*bytes)
         })?;
-        let graph = proto.graph.as_ref().ok_or_else(|| invalid("the ONNX model has no graph"))?;
+        let graph = proto
+            .graph
+            .as_ref()
+            .ok_or_else(|| invalid("the ONNX model has no graph"))?;
         refuse_external_data(graph)?;
         if graph.node.iter().any(|n| n.op_type == "ZipMap") {
             return Err(invalid(
@@ -117,8 +122,11 @@ impl Model {
         }
         let initializers: std::collections::HashSet<&str> =
             graph.initializer.iter().map(|t| t.name.as_str()).collect();
-        let declared: Vec<&pb::ValueInfoProto> =
-            graph.input.iter().filter(|i| !initializers.contains(i.name.as_str())).collect();
+        let declared: Vec<&pb::ValueInfoProto> = graph
+            .input
+            .iter()
+            .filter(|i| !initializers.contains(i.name.as_str()))
+            .collect();
 
         let mut model = guarded("the engine cannot load this ONNX graph", || {
             tract_onnx::onnx().model_for_proto_model(&proto)
@@ -158,14 +166,22 @@ impl Model {
                 .iter()
                 .find(|o| o.domain.is_empty() || o.domain == "ai.onnx")
                 .map(|o| o.version),
-            producer: [proto.producer_name.as_str(), proto.producer_version.as_str()]
-                .join(" ")
-                .trim()
-                .to_string(),
+            producer: [
+                proto.producer_name.as_str(),
+                proto.producer_version.as_str(),
+            ]
+            .join(" ")
+            .trim()
+            .to_string(),
             inputs,
             outputs,
         };
-        let mut model = Model { info, typed, batch, input_types };
+        let mut model = Model {
+            info,
+            typed,
+            batch,
+            input_types,
+        };
         model.info.macs = model.macs_per_sample(&HashMap::new());
         Ok(model)
     }
@@ -174,16 +190,19 @@ impl Model {
     pub fn output_index(&self, output: Option<&str>) -> EngineResult<usize> {
         match output {
             None => Ok(0),
-            Some(name) => {
-                self.info.outputs.iter().position(|o| o.name == name).ok_or_else(|| {
+            Some(name) => self
+                .info
+                .outputs
+                .iter()
+                .position(|o| o.name == name)
+                .ok_or_else(|| {
                     let known: Vec<&str> =
                         self.info.outputs.iter().map(|o| o.name.as_str()).collect();
                     EngineError::Mismatch(format!(
                         "the model has no output named '{name}' (its outputs: {})",
                         known.join(", ")
                     ))
-                })
-            }
+                }),
         }
     }
 
@@ -222,7 +241,10 @@ impl Model {
                     }
                 }
             }
-            total.eval(&values).to_i64().map_err(|e| anyhow::anyhow!("{e:?}"))
+            total
+                .eval(&values)
+                .to_i64()
+                .map_err(|e| anyhow::anyhow!("{e:?}"))
         })
         .ok()?;
         let per_batch = u64::try_from(total).ok()?;
@@ -240,16 +262,26 @@ impl Model {
         output: usize,
     ) -> EngineResult<Vec<usize>> {
         let values = self.symbol_values(batch, dims);
-        let outlet = self.typed.output_outlets().map_err(|e| invalid(e.to_string()))?[output];
-        let fact = self.typed.outlet_fact(outlet).map_err(|e| invalid(e.to_string()))?;
+        let outlet = self
+            .typed
+            .output_outlets()
+            .map_err(|e| invalid(e.to_string()))?[output];
+        let fact = self
+            .typed
+            .outlet_fact(outlet)
+            .map_err(|e| invalid(e.to_string()))?;
         fact.shape
             .iter()
             .map(|d| {
-                d.eval(&values).to_i64().ok().and_then(|v| usize::try_from(v).ok()).ok_or_else(|| {
-                    invalid(format!(
-                        "the size of output axis '{d}' cannot be worked out from the inputs"
-                    ))
-                })
+                d.eval(&values)
+                    .to_i64()
+                    .ok()
+                    .and_then(|v| usize::try_from(v).ok())
+                    .ok_or_else(|| {
+                        invalid(format!(
+                            "the size of output axis '{d}' cannot be worked out from the inputs"
+                        ))
+                    })
             })
             .collect()
     }
@@ -270,8 +302,11 @@ impl Model {
                 "the model's batch axis is fixed to {b}, so it cannot run batches of {batch}"
             )));
         }
-        let subs: HashMap<Symbol, TDim> =
-            self.bindings(batch, dims).into_iter().map(|(s, v)| (s, TDim::from(v))).collect();
+        let subs: HashMap<Symbol, TDim> = self
+            .bindings(batch, dims)
+            .into_iter()
+            .map(|(s, v)| (s, TDim::from(v)))
+            .collect();
         let runnable = guarded("the engine cannot plan this graph", || {
             let mut m = self.typed.clone();
             let outlet = m.output_outlets()?[output];
@@ -307,9 +342,10 @@ fn name_input_axes(declared: &[&pb::ValueInfoProto]) -> EngineResult<Vec<Vec<Dim
             else {
                 return Err(invalid(format!("input '{}' is not a tensor", v.name)));
             };
-            let shape = t.shape.as_ref().ok_or_else(|| {
-                invalid(format!("input '{}' has no declared shape", v.name))
-            })?;
+            let shape = t
+                .shape
+                .as_ref()
+                .ok_or_else(|| invalid(format!("input '{}' has no declared shape", v.name)))?;
             Ok(shape
                 .dim
                 .iter()
@@ -351,11 +387,16 @@ fn batch_axis(typed: &TypedModel, shapes: &[Vec<Dim>]) -> EngineResult<BatchAxis
     }
     match firsts[0] {
         Dim::Symbol(name) if firsts.iter().all(|d| *d == firsts[0]) => {
-            let sym = typed.symbols.get(name).ok_or_else(|| invalid("batch symbol lost"))?;
+            let sym = typed
+                .symbols
+                .get(name)
+                .ok_or_else(|| invalid("batch symbol lost"))?;
             Ok(BatchAxis::Symbolic(sym))
         }
         Dim::Fixed(n) if firsts.iter().all(|d| *d == firsts[0]) => Ok(BatchAxis::Fixed(*n)),
-        _ => Err(invalid("the model's inputs disagree on the batch axis (their first axes differ)")),
+        _ => Err(invalid(
+            "the model's inputs disagree on the batch axis (their first axes differ)",
+        )),
     }
 }
 

@@ -52,7 +52,10 @@ impl Dtype {
     }
 
     pub fn is_integer(self) -> bool {
-        !matches!(self, Dtype::Bool | Dtype::Float16 | Dtype::Float32 | Dtype::Float64)
+        !matches!(
+            self,
+            Dtype::Bool | Dtype::Float16 | Dtype::Float32 | Dtype::Float64
+        )
     }
 
     pub fn is_float(self) -> bool {
@@ -112,7 +115,8 @@ const MAGIC: &[u8] = b"\x93NUMPY";
 /// Reads the header, leaving `r` at the first data byte.
 pub fn read_header(r: &mut impl Read) -> Result<Header, String> {
     let mut lead = [0u8; 8];
-    r.read_exact(&mut lead).map_err(|_| "too short to be an NPY array".to_string())?;
+    r.read_exact(&mut lead)
+        .map_err(|_| "too short to be an NPY array".to_string())?;
     if &lead[..6] != MAGIC {
         return Err("not an NPY array (bad magic bytes)".into());
     }
@@ -133,7 +137,8 @@ pub fn read_header(r: &mut impl Read) -> Result<Header, String> {
         return Err("NPY header is implausibly large".into());
     }
     let mut text = vec![0u8; len];
-    r.read_exact(&mut text).map_err(|_| "truncated NPY header")?;
+    r.read_exact(&mut text)
+        .map_err(|_| "truncated NPY header")?;
     let text = String::from_utf8_lossy(&text);
     parse_header_dict(&text)
 }
@@ -157,20 +162,30 @@ fn parse_header_dict(text: &str) -> Result<Header, String> {
         .split(',')
         .map(str::trim)
         .filter(|s| !s.is_empty())
-        .map(|s| s.parse::<usize>().map_err(|_| format!("bad dimension '{s}' in the array shape")))
+        .map(|s| {
+            s.parse::<usize>()
+                .map_err(|_| format!("bad dimension '{s}' in the array shape"))
+        })
         .collect::<Result<Vec<_>, _>>()?;
     if fortran == "True" && shape.iter().filter(|&&d| d > 1).count() > 1 {
         return Err(
             "Fortran-ordered arrays are not supported: save with np.ascontiguousarray".into(),
         );
     }
-    Ok(Header { dtype, big_endian, shape })
+    Ok(Header {
+        dtype,
+        big_endian,
+        shape,
+    })
 }
 
 /// The raw text of one value in the header dict (a string, bool or tuple).
 fn dict_value<'a>(text: &'a str, key: &str) -> Result<&'a str, String> {
     let pat = format!("'{key}':");
-    let start = text.find(&pat).ok_or_else(|| format!("NPY header has no '{key}'"))? + pat.len();
+    let start = text
+        .find(&pat)
+        .ok_or_else(|| format!("NPY header has no '{key}'"))?
+        + pat.len();
     let rest = text[start..].trim_start();
     let end = if rest.starts_with('(') {
         rest.find(')').map(|i| i + 1)
@@ -276,28 +291,48 @@ mod tests {
 
     #[test]
     fn a_version_one_header_gives_dtype_and_shape() {
-        let bytes = npy("{'descr': '<f4', 'fortran_order': False, 'shape': (3, 4), }\n", &[]);
+        let bytes = npy(
+            "{'descr': '<f4', 'fortran_order': False, 'shape': (3, 4), }\n",
+            &[],
+        );
         let h = read_header(&mut bytes.as_slice()).unwrap();
-        assert_eq!(h, Header { dtype: Dtype::Float32, big_endian: false, shape: vec![3, 4] });
+        assert_eq!(
+            h,
+            Header {
+                dtype: Dtype::Float32,
+                big_endian: false,
+                shape: vec![3, 4]
+            }
+        );
         assert_eq!(h.row_bytes(), 16);
     }
 
     #[test]
     fn a_one_dimensional_shape_has_a_trailing_comma() {
-        let bytes = npy("{'descr': '|b1', 'fortran_order': False, 'shape': (7,), }", &[]);
+        let bytes = npy(
+            "{'descr': '|b1', 'fortran_order': False, 'shape': (7,), }",
+            &[],
+        );
         assert_eq!(read_header(&mut bytes.as_slice()).unwrap().shape, vec![7]);
     }
 
     #[test]
     fn object_arrays_are_refused_with_a_reason() {
-        let bytes = npy("{'descr': '|O', 'fortran_order': False, 'shape': (2,), }", &[]);
+        let bytes = npy(
+            "{'descr': '|O', 'fortran_order': False, 'shape': (2,), }",
+            &[],
+        );
         let err = read_header(&mut bytes.as_slice()).unwrap_err();
         assert!(err.contains("object arrays"), "{err}");
     }
 
     #[test]
     fn big_endian_elements_are_swapped() {
-        let h = Header { dtype: Dtype::Int32, big_endian: true, shape: vec![1] };
+        let h = Header {
+            dtype: Dtype::Int32,
+            big_endian: true,
+            shape: vec![1],
+        };
         assert_eq!(element(&[0, 0, 1, 2], &h, 0), Scalar::Int(258));
     }
 

@@ -28,10 +28,16 @@ pub struct Prepared {
 impl Prepared {
     pub fn new(label: String, model: Model, binding: Binding, output: usize) -> EngineResult<Self> {
         let shape = model.output_shape(1, &binding.dims, output)?;
-        let classes = class_count(&shape).map_err(|e| {
-            EngineError::Mismatch(format!("model '{label}': {e}"))
-        })?;
-        Ok(Prepared { label, model, binding, output, classes, plans: Mutex::new(HashMap::new()) })
+        let classes = class_count(&shape)
+            .map_err(|e| EngineError::Mismatch(format!("model '{label}': {e}")))?;
+        Ok(Prepared {
+            label,
+            model,
+            binding,
+            output,
+            classes,
+            plans: Mutex::new(HashMap::new()),
+        })
     }
 
     /// The batch size this model runs at in the offline pass.
@@ -110,13 +116,19 @@ pub(crate) fn append_scores(
         )));
     }
     if !out.datum_type().is_float() {
-        return Err(bad(format!("the scored output is {:?}, not a float tensor", out.datum_type())));
+        return Err(bad(format!(
+            "the scored output is {:?}, not a float tensor",
+            out.datum_type()
+        )));
     }
     let cast = out.cast_to::<f64>().map_err(|e| bad(e.to_string()))?;
     let plain = cast.try_as_plain_ram().map_err(|e| bad(e.to_string()))?;
     let values = plain.as_slice::<f64>().map_err(|e| bad(e.to_string()))?;
     if let Some(i) = values.iter().position(|v| v.is_nan()) {
-        return Err(bad(format!("the output is NaN at sample {}", first_sample + i / m.classes)));
+        return Err(bad(format!(
+            "the output is NaN at sample {}",
+            first_sample + i / m.classes
+        )));
     }
     into.push_rows(values);
     Ok(())

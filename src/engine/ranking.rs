@@ -12,7 +12,10 @@ fn key(c: &Candidate, rank_by: RankBy) -> f64 {
     match rank_by {
         RankBy::Agreement => -c.fidelity.agreement,
         RankBy::Kl => c.fidelity.kl,
-        RankBy::Top1 => -c.accuracy.as_ref().map_or(f64::NEG_INFINITY, |a| a.own.top1),
+        RankBy::Top1 => -c
+            .accuracy
+            .as_ref()
+            .map_or(f64::NEG_INFINITY, |a| a.own.top1),
         RankBy::P50Ms => c.latency.own.p50_ms,
         RankBy::Bytes => c.size.bytes as f64,
     }
@@ -48,7 +51,10 @@ pub fn rank(candidates: &mut [Candidate], rank_by: RankBy) {
 /// Quality for dominance: top1 when ranking by top1, else agreement.
 fn quality(c: &Candidate, rank_by: RankBy) -> f64 {
     match rank_by {
-        RankBy::Top1 => c.accuracy.as_ref().map_or(f64::NEG_INFINITY, |a| a.own.top1),
+        RankBy::Top1 => c
+            .accuracy
+            .as_ref()
+            .map_or(f64::NEG_INFINITY, |a| a.own.top1),
         _ => c.fidelity.agreement,
     }
 }

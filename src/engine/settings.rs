@@ -17,7 +17,10 @@ pub struct SettingsError {
 }
 
 fn refuse(field: &str, message: impl Into<String>) -> SettingsError {
-    SettingsError { field: field.to_string(), message: message.into() }
+    SettingsError {
+        field: field.to_string(),
+        message: message.into(),
+    }
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
@@ -30,7 +33,10 @@ pub struct OutputKinds {
 
 impl Default for OutputKinds {
     fn default() -> Self {
-        OutputKinds { teacher: OutputKindChoice::Auto, students: OutputKindChoice::Auto }
+        OutputKinds {
+            teacher: OutputKindChoice::Auto,
+            students: OutputKindChoice::Auto,
+        }
     }
 }
 
@@ -51,7 +57,10 @@ fn default_iterations() -> u32 {
 
 impl Default for LatencySettings {
     fn default() -> Self {
-        LatencySettings { warmup: default_warmup(), iterations: default_iterations() }
+        LatencySettings {
+            warmup: default_warmup(),
+            iterations: default_iterations(),
+        }
     }
 }
 
@@ -87,7 +96,10 @@ impl Gates {
                 .ok_or_else(|| refuse(&field, format!("gate '{key}' needs a finite number")))?;
             if key == "confidence" {
                 if !(number > 0.0 && number < 1.0) {
-                    return Err(refuse(&field, "confidence must lie strictly between 0 and 1"));
+                    return Err(refuse(
+                        &field,
+                        "confidence must lie strictly between 0 and 1",
+                    ));
                 }
                 gates.confidence = Some(number);
                 continue;
@@ -95,7 +107,10 @@ impl Gates {
             let name = GateName::parse(key).ok_or_else(|| {
                 refuse(
                     &field,
-                    format!("unknown gate '{key}'; known gates: {}", GateName::all_names()),
+                    format!(
+                        "unknown gate '{key}'; known gates: {}",
+                        GateName::all_names()
+                    ),
                 )
             })?;
             gates.thresholds.push((name, number));
@@ -105,12 +120,18 @@ impl Gates {
     }
 
     pub fn needs_labels(&self) -> Option<GateName> {
-        self.thresholds.iter().map(|(g, _)| *g).find(|g| g.needs_labels())
+        self.thresholds
+            .iter()
+            .map(|(g, _)| *g)
+            .find(|g| g.needs_labels())
     }
 
     pub fn to_json(&self) -> Map<String, Value> {
-        let mut map: Map<String, Value> =
-            self.thresholds.iter().map(|(g, v)| (g.as_str().to_string(), Value::from(*v))).collect();
+        let mut map: Map<String, Value> = self
+            .thresholds
+            .iter()
+            .map(|(g, v)| (g.as_str().to_string(), Value::from(*v)))
+            .collect();
         if let Some(c) = self.confidence {
             map.insert("confidence".into(), Value::from(c));
         }
@@ -163,16 +184,25 @@ impl Settings {
     /// The limits of metrics.md, and those that keep every figure defined.
     pub fn check(&self, has_labels: bool) -> Result<(), SettingsError> {
         if !(self.temperature.is_finite() && self.temperature > 0.0) {
-            return Err(refuse("temperature", "temperature must be a positive number"));
+            return Err(refuse(
+                "temperature",
+                "temperature must be a positive number",
+            ));
         }
         if !(0.0..=1.0).contains(&self.alpha) {
             return Err(refuse("alpha", "alpha must lie between 0 and 1"));
         }
         if !(1..=4096).contains(&self.batch_size) {
-            return Err(refuse("batch_size", "batch_size must lie between 1 and 4096"));
+            return Err(refuse(
+                "batch_size",
+                "batch_size must lie between 1 and 4096",
+            ));
         }
         if self.latency.warmup > 10_000 {
-            return Err(refuse("latency.warmup", "latency.warmup must lie between 0 and 10000"));
+            return Err(refuse(
+                "latency.warmup",
+                "latency.warmup must lie between 0 and 10000",
+            ));
         }
         if !(1..=100_000).contains(&self.latency.iterations) {
             return Err(refuse(
@@ -184,7 +214,10 @@ impl Settings {
             if let Some(g) = self.gates.needs_labels() {
                 return Err(refuse(
                     &format!("gates.{}", g.as_str()),
-                    format!("gate '{}' needs labels, and the evaluation set has none", g.as_str()),
+                    format!(
+                        "gate '{}' needs labels, and the evaluation set has none",
+                        g.as_str()
+                    ),
                 ));
             }
             if self.rank_by == RankBy::Top1 {
@@ -218,7 +251,10 @@ mod tests {
     fn confidence_must_lie_strictly_inside_zero_and_one() {
         assert!(gates(json!({"confidence": 1.0})).is_err());
         assert!(gates(json!({"confidence": 0.0})).is_err());
-        assert_eq!(gates(json!({"confidence": 0.9})).unwrap().confidence, Some(0.9));
+        assert_eq!(
+            gates(json!({"confidence": 0.9})).unwrap().confidence,
+            Some(0.9)
+        );
     }
 
     #[test]
@@ -236,9 +272,15 @@ mod tests {
         let mut s = Settings::default();
         s.latency.iterations = 0;
         assert_eq!(s.check(true).unwrap_err().field, "latency.iterations");
-        let s = Settings { batch_size: 4097, ..Settings::default() };
+        let s = Settings {
+            batch_size: 4097,
+            ..Settings::default()
+        };
         assert_eq!(s.check(true).unwrap_err().field, "batch_size");
-        let s = Settings { temperature: 0.0, ..Settings::default() };
+        let s = Settings {
+            temperature: 0.0,
+            ..Settings::default()
+        };
         assert_eq!(s.check(true).unwrap_err().field, "temperature");
     }
 }

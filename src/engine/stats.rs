@@ -89,7 +89,11 @@ mod tests {
     #[test]
     fn z_at_95_percent_matches_the_published_quantile() {
         // Phi^-1(0.975) = 1.959963984540054 (metrics.md; scipy.stats.norm.ppf(0.975)).
-        assert!(close(z_for_confidence(0.95), Z95, 1e-12), "{}", z_for_confidence(0.95));
+        assert!(
+            close(z_for_confidence(0.95), Z95, 1e-12),
+            "{}",
+            z_for_confidence(0.95)
+        );
         // scipy 1.17 stats.norm.ppf(0.995).
         assert!(close(z_for_confidence(0.99), 2.5758293035489004, 1e-9));
     }

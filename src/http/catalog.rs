@@ -11,7 +11,12 @@ use crate::error::AppError;
 use crate::service::{App, Uploaded};
 
 fn declared_length(headers: &HeaderMap) -> Option<u64> {
-    headers.get(header::CONTENT_LENGTH)?.to_str().ok()?.parse().ok()
+    headers
+        .get(header::CONTENT_LENGTH)?
+        .to_str()
+        .ok()?
+        .parse()
+        .ok()
 }
 
 fn upload_name(q: &QueryMap) -> Result<String, AppError> {
@@ -22,9 +27,19 @@ fn upload_name(q: &QueryMap) -> Result<String, AppError> {
 /// 201 with a Location for a new record, 200 for a file already stored.
 fn uploaded<T: serde::Serialize>(up: Uploaded<T>, location: String) -> Response {
     if up.created {
-        (StatusCode::CREATED, [(header::LOCATION, location)], Json(up.record)).into_response()
+        (
+            StatusCode::CREATED,
+            [(header::LOCATION, location)],
+            Json(up.record),
+        )
+            .into_response()
     } else {
-        (StatusCode::OK, [(header::LOCATION, location)], Json(up.record)).into_response()
+        (
+            StatusCode::OK,
+            [(header::LOCATION, location)],
+            Json(up.record),
+        )
+            .into_response()
     }
 }
 
@@ -34,19 +49,35 @@ pub(super) async fn upload_model(
     headers: HeaderMap,
     body: Body,
 ) -> Result<Response, AppError> {
-    let up = app.upload_model(upload_name(&q)?, body.into_data_stream(), declared_length(&headers)).await?;
+    let up = app
+        .upload_model(
+            upload_name(&q)?,
+            body.into_data_stream(),
+            declared_length(&headers),
+        )
+        .await?;
     let location = format!("/v1/models/{}", up.record.id);
     Ok(uploaded(up, location))
 }
 
-pub(super) async fn get_model(State(app): State<App>, Path(id): Path<String>) -> Result<Response, AppError> {
+pub(super) async fn get_model(
+    State(app): State<App>,
+    Path(id): Path<String>,
+) -> Result<Response, AppError> {
     let id = path_id(&id, "model")?;
-    let m = app.store.model(id).await?.ok_or_else(|| AppError::NotFound(format!("no model has id {id}")))?;
+    let m = app
+        .store
+        .model(id)
+        .await?
+        .ok_or_else(|| AppError::NotFound(format!("no model has id {id}")))?;
     Ok(Json(m).into_response())
 }
 
 pub(super) async fn list_models(State(app): State<App>, q: QueryMap) -> Result<Response, AppError> {
-    let page = app.store.list_models(q.sha256()?.as_deref(), q.limit()?, q.uuid("cursor")?).await?;
+    let page = app
+        .store
+        .list_models(q.sha256()?.as_deref(), q.limit()?, q.uuid("cursor")?)
+        .await?;
     Ok(Json(page).into_response())
 }
 
@@ -56,12 +87,21 @@ pub(super) async fn upload_dataset(
     headers: HeaderMap,
     body: Body,
 ) -> Result<Response, AppError> {
-    let up = app.upload_dataset(upload_name(&q)?, body.into_data_stream(), declared_length(&headers)).await?;
+    let up = app
+        .upload_dataset(
+            upload_name(&q)?,
+            body.into_data_stream(),
+            declared_length(&headers),
+        )
+        .await?;
     let location = format!("/v1/datasets/{}", up.record.id);
     Ok(uploaded(up, location))
 }
 
-pub(super) async fn get_dataset(State(app): State<App>, Path(id): Path<String>) -> Result<Response, AppError> {
+pub(super) async fn get_dataset(
+    State(app): State<App>,
+    Path(id): Path<String>,
+) -> Result<Response, AppError> {
     let id = path_id(&id, "evaluation set")?;
     let d = app
         .store
@@ -71,7 +111,13 @@ pub(super) async fn get_dataset(State(app): State<App>, Path(id): Path<String>) 
     Ok(Json(d).into_response())
 }
 
-pub(super) async fn list_datasets(State(app): State<App>, q: QueryMap) -> Result<Response, AppError> {
-    let page = app.store.list_datasets(q.sha256()?.as_deref(), q.limit()?, q.uuid("cursor")?).await?;
+pub(super) async fn list_datasets(
+    State(app): State<App>,
+    q: QueryMap,
+) -> Result<Response, AppError> {
+    let page = app
+        .store
+        .list_datasets(q.sha256()?.as_deref(), q.limit()?, q.uuid("cursor")?)
+        .await?;
     Ok(Json(page).into_response())
 }

@@ -17,19 +17,33 @@ pub(super) async fn create(
 ) -> Result<Response, AppError> {
     let record = app.create_evaluation(req).await?;
     let location = format!("/v1/evaluations/{}", record.id);
-    Ok((StatusCode::ACCEPTED, [(header::LOCATION, location)], Json(record)).into_response())
+    Ok((
+        StatusCode::ACCEPTED,
+        [(header::LOCATION, location)],
+        Json(record),
+    )
+        .into_response())
 }
 
-pub(super) async fn get(State(app): State<App>, Path(id): Path<String>) -> Result<Response, AppError> {
+pub(super) async fn get(
+    State(app): State<App>,
+    Path(id): Path<String>,
+) -> Result<Response, AppError> {
     Ok(Json(app.evaluation(path_id(&id, "evaluation")?).await?).into_response())
 }
 
-pub(super) async fn report(State(app): State<App>, Path(id): Path<String>) -> Result<Response, AppError> {
+pub(super) async fn report(
+    State(app): State<App>,
+    Path(id): Path<String>,
+) -> Result<Response, AppError> {
     let body = app.report(path_id(&id, "evaluation")?).await?;
     Ok(([(header::CONTENT_TYPE, "application/json")], body).into_response())
 }
 
-pub(super) async fn cancel(State(app): State<App>, Path(id): Path<String>) -> Result<Response, AppError> {
+pub(super) async fn cancel(
+    State(app): State<App>,
+    Path(id): Path<String>,
+) -> Result<Response, AppError> {
     Ok(Json(app.cancel_evaluation(path_id(&id, "evaluation")?).await?).into_response())
 }
 
@@ -50,18 +64,29 @@ pub(super) fn list_query(q: &QueryMap) -> Result<ListQuery, AppError> {
         None => None,
         Some("go") => Some(Verdict::Go),
         Some("no-go") => Some(Verdict::NoGo),
-        Some(_) => return Err(AppError::bad_request("verdict must be go or no-go", Some("verdict"))),
+        Some(_) => {
+            return Err(AppError::bad_request(
+                "verdict must be go or no-go",
+                Some("verdict"),
+            ));
+        }
     };
     let tag = q
         .text("tag")
         .map(|t| {
-            t.split_once(':').map(|(k, v)| (k.to_string(), v.to_string())).ok_or_else(|| {
-                AppError::bad_request("tag must be given as key:value", Some("tag"))
-            })
+            t.split_once(':')
+                .map(|(k, v)| (k.to_string(), v.to_string()))
+                .ok_or_else(|| AppError::bad_request("tag must be given as key:value", Some("tag")))
         })
         .transpose()?;
     Ok(ListQuery {
-        filter: EvaluationFilter { project: q.text("project"), teacher: q.uuid("teacher")?, status, verdict, tag },
+        filter: EvaluationFilter {
+            project: q.text("project"),
+            teacher: q.uuid("teacher")?,
+            status,
+            verdict,
+            tag,
+        },
         limit: q.limit()?,
         cursor: q.uuid("cursor")?,
     })

@@ -23,9 +23,11 @@ impl<S: Send + Sync, T: DeserializeOwned> FromRequest<S> for JsonBody<T> {
     type Rejection = AppError;
 
     async fn from_request(req: Request<Body>, _: &S) -> Result<Self, AppError> {
-        let bytes = axum::body::to_bytes(req.into_body(), MAX_JSON_BYTES).await.map_err(|_| {
-            AppError::TooLarge(format!("JSON bodies are limited to {MAX_JSON_BYTES} bytes"))
-        })?;
+        let bytes = axum::body::to_bytes(req.into_body(), MAX_JSON_BYTES)
+            .await
+            .map_err(|_| {
+                AppError::TooLarge(format!("JSON bodies are limited to {MAX_JSON_BYTES} bytes"))
+            })?;
         let mut de = serde_json::Deserializer::from_slice(&bytes);
         match serde_path_to_error::deserialize(&mut de) {
             Ok(v) => Ok(JsonBody(v)),
@@ -36,7 +38,10 @@ impl<S: Send + Sync, T: DeserializeOwned> FromRequest<S> for JsonBody<T> {
                 if inner.is_data() {
                     Err(AppError::unprocessable(inner.to_string(), field.as_deref()))
                 } else {
-                    Err(AppError::bad_request(format!("the body is not valid JSON: {inner}"), None))
+                    Err(AppError::bad_request(
+                        format!("the body is not valid JSON: {inner}"),
+                        None,
+                    ))
                 }
             }
         }
@@ -74,9 +79,16 @@ impl QueryMap {
     pub(super) fn limit(&self) -> Result<u32, AppError> {
         match self.text("limit") {
             None => Ok(DEFAULT_PAGE),
-            Some(v) => v.parse::<u32>().ok().filter(|n| (1..=MAX_PAGE).contains(n)).ok_or_else(|| {
-                AppError::bad_request(format!("limit must be a whole number from 1 to {MAX_PAGE}"), Some("limit"))
-            }),
+            Some(v) => v
+                .parse::<u32>()
+                .ok()
+                .filter(|n| (1..=MAX_PAGE).contains(n))
+                .ok_or_else(|| {
+                    AppError::bad_request(
+                        format!("limit must be a whole number from 1 to {MAX_PAGE}"),
+                        Some("limit"),
+                    )
+                }),
         }
     }
 
@@ -85,7 +97,10 @@ impl QueryMap {
             Some(h) if h.len() == 64 && h.bytes().all(|b| b.is_ascii_hexdigit()) => {
                 Ok(Some(h.to_ascii_lowercase()))
             }
-            Some(_) => Err(AppError::bad_request("sha256 must be 64 hexadecimal digits", Some("sha256"))),
+            Some(_) => Err(AppError::bad_request(
+                "sha256 must be 64 hexadecimal digits",
+                Some("sha256"),
+            )),
             None => Ok(None),
         }
     }

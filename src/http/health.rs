@@ -17,7 +17,9 @@ pub(super) async fn readyz(State(app): State<App>) -> Result<Response, AppError>
         return Err(AppError::Unavailable("the database does not answer".into()));
     }
     if !app.queue.workers_alive() {
-        return Err(AppError::Unavailable("no evaluation worker is running".into()));
+        return Err(AppError::Unavailable(
+            "no evaluation worker is running".into(),
+        ));
     }
     Ok(Json(json!({"status": "ready"})).into_response())
 }

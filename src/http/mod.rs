@@ -47,14 +47,44 @@ fn table() -> Vec<(&'static str, &'static str, Kind, MethodRouter<App>)> {
         ("post", "/v1/models", Upload, post(catalog::upload_model)),
         ("get", "/v1/models", Bounded, get(catalog::list_models)),
         ("get", "/v1/models/{id}", Bounded, get(catalog::get_model)),
-        ("post", "/v1/datasets", Upload, post(catalog::upload_dataset)),
+        (
+            "post",
+            "/v1/datasets",
+            Upload,
+            post(catalog::upload_dataset),
+        ),
         ("get", "/v1/datasets", Bounded, get(catalog::list_datasets)),
-        ("get", "/v1/datasets/{id}", Bounded, get(catalog::get_dataset)),
-        ("post", "/v1/evaluations", Bounded, post(evaluations::create)),
+        (
+            "get",
+            "/v1/datasets/{id}",
+            Bounded,
+            get(catalog::get_dataset),
+        ),
+        (
+            "post",
+            "/v1/evaluations",
+            Bounded,
+            post(evaluations::create),
+        ),
         ("get", "/v1/evaluations", Bounded, get(evaluations::list)),
-        ("get", "/v1/evaluations/{id}", Bounded, get(evaluations::get)),
-        ("delete", "/v1/evaluations/{id}", Bounded, delete(evaluations::cancel)),
-        ("get", "/v1/evaluations/{id}/report", Bounded, get(evaluations::report)),
+        (
+            "get",
+            "/v1/evaluations/{id}",
+            Bounded,
+            get(evaluations::get),
+        ),
+        (
+            "delete",
+            "/v1/evaluations/{id}",
+            Bounded,
+            delete(evaluations::cancel),
+        ),
+        (
+            "get",
+            "/v1/evaluations/{id}/report",
+            Bounded,
+            get(evaluations::report),
+        ),
         ("get", "/healthz", Bounded, get(health::healthz)),
         ("get", "/readyz", Bounded, get(health::readyz)),
         ("get", "/openapi.yaml", Bounded, get(openapi)),
@@ -76,7 +106,10 @@ pub fn router(app: App) -> Router {
         }
     }
     let bounded = bounded
-        .layer(TimeoutLayer::with_status_code(StatusCode::REQUEST_TIMEOUT, REQUEST_TIMEOUT))
+        .layer(TimeoutLayer::with_status_code(
+            StatusCode::REQUEST_TIMEOUT,
+            REQUEST_TIMEOUT,
+        ))
         .layer(CompressionLayer::new());
     let request_id = HeaderName::from_static("x-request-id");
     uploads.merge(bounded).with_state(app).layer(

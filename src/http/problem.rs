@@ -15,7 +15,8 @@ pub const PROBLEM_JSON: &str = "application/problem+json";
 fn respond(status: u16, body: serde_json::Value) -> Response {
     let code = StatusCode::from_u16(status).unwrap_or(StatusCode::INTERNAL_SERVER_ERROR);
     let mut res = (code, body.to_string()).into_response();
-    res.headers_mut().insert(header::CONTENT_TYPE, HeaderValue::from_static(PROBLEM_JSON));
+    res.headers_mut()
+        .insert(header::CONTENT_TYPE, HeaderValue::from_static(PROBLEM_JSON));
     res
 }
 

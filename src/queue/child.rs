@@ -51,7 +51,9 @@ fn describe_crash(status: std::process::ExitStatus, stderr: &str, limits: &Limit
             memory.unwrap_or_else(|| "none".into())
         ),
         (_, Some(sig)) => format!("the engine process crashed (signal {sig})"),
-        (Some(code), _) => format!("the engine process exited with status {code} without an answer"),
+        (Some(code), _) => {
+            format!("the engine process exited with status {code} without an answer")
+        }
         _ => "the engine process ended without an answer".into(),
     }
 }
@@ -83,7 +85,10 @@ pub async fn run(
                 return Err(std::io::Error::last_os_error());
             }
             if let Some(cap) = cap {
-                let rl = libc::rlimit { rlim_cur: cap, rlim_max: cap };
+                let rl = libc::rlimit {
+                    rlim_cur: cap,
+                    rlim_max: cap,
+                };
                 if libc::setrlimit(libc::RLIMIT_AS, &rl) != 0 {
                     return Err(std::io::Error::last_os_error());
                 }

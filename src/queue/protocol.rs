@@ -14,10 +14,16 @@ use crate::report::Report;
 #[derive(Debug, Clone, Serialize, Deserialize)]
 #[serde(tag = "task", rename_all = "snake_case")]
 pub enum Task {
-    InspectModel { path: PathBuf },
-    InspectDataset { path: PathBuf },
+    InspectModel {
+        path: PathBuf,
+    },
+    InspectDataset {
+        path: PathBuf,
+    },
     /// Every check that can be made before running.
-    Check { job: Box<Job> },
+    Check {
+        job: Box<Job>,
+    },
     Evaluate {
         job: Box<Job>,
         teacher_cache: Option<PathBuf>,
@@ -63,7 +69,11 @@ impl From<&EngineError> for Failure {
             EngineError::Settings(s) => Some(s.field.clone()),
             _ => None,
         };
-        Failure { kind, message: e.to_string(), field }
+        Failure {
+            kind,
+            message: e.to_string(),
+            field,
+        }
     }
 }
 

@@ -53,7 +53,12 @@ fn run(task: Task, out: &Mutex<std::io::Stdout>) -> EngineResult<Message> {
         Task::InspectModel { path } => Ok(Message::Model(Box::new(engine::inspect_model(&path)?))),
         Task::InspectDataset { path } => Ok(Message::Dataset(engine::inspect_dataset(&path)?)),
         Task::Check { job } => engine::prepare(&job).map(|_| Message::Checked),
-        Task::Evaluate { job, teacher_cache, offline_threads, cpu_lock } => {
+        Task::Evaluate {
+            job,
+            teacher_cache,
+            offline_threads,
+            cpu_lock,
+        } => {
             let lease: Box<dyn CpuLease> = match cpu_lock {
                 Some(path) => Box::new(FileLease::open(&path)?),
                 None => Box::new(Alone),
@@ -71,8 +76,15 @@ fn run(task: Task, out: &Mutex<std::io::Stdout>) -> EngineResult<Message> {
             };
             // The parent cancels by killing the child; the flag stays down.
             let cancel = AtomicBool::new(false);
-            let hooks = Hooks { progress: &progress, cancel: &cancel, cpu: lease.as_ref() };
-            let options = Options { teacher_cache, offline_threads };
+            let hooks = Hooks {
+                progress: &progress,
+                cancel: &cancel,
+                cpu: lease.as_ref(),
+            };
+            let options = Options {
+                teacher_cache,
+                offline_threads,
+            };
             let outcome = engine::evaluate(&job, &options, &hooks)?;
             Ok(Message::Report(Box::new(outcome.report)))
         }

@@ -7,9 +7,9 @@ use std::sync::{Arc, Mutex};
 use std::time::Duration;
 
 use tokio::sync::{Notify, watch};
-use tracing::Instrument;
 use tokio::task::JoinHandle;
 use tokio_util::sync::CancellationToken;
+use tracing::Instrument;
 use uuid::Uuid;
 
 use super::child::{self, Ended, Limits};
@@ -51,7 +51,11 @@ impl Queue {
     pub async fn start(store: Store, config: QueueConfig) -> Result<Queue, StoreError> {
         let (requeued, failed) = store.recover_interrupted().await?;
         if requeued + failed > 0 {
-            tracing::info!(requeued, failed, "recovered evaluations interrupted by a restart");
+            tracing::info!(
+                requeued,
+                failed,
+                "recovered evaluations interrupted by a restart"
+            );
         }
         let inner = Arc::new(Inner {
             store,
@@ -90,14 +94,21 @@ impl Queue {
     /// in a child under the evaluation limits.
     pub async fn check(&self, task: &Task) -> std::io::Result<Ended> {
         let never = CancellationToken::new();
-        child::run(&self.inner.config.exe, task, &self.inner.config.limits, &never, |_, _, _| {})
-            .await
+        child::run(
+            &self.inner.config.exe,
+            task,
+            &self.inner.config.limits,
+            &never,
+            |_, _, _| {},
+        )
+        .await
     }
 
     /// Stops the workers: running evaluations are put back in the queue.
     pub async fn shutdown(&self) {
         self.inner.shutdown.cancel();
-        let handles = std::mem::take(&mut *self.inner.handles.lock().unwrap_or_else(|p| p.into_inner()));
+        let handles =
+            std::mem::take(&mut *self.inner.handles.lock().unwrap_or_else(|p| p.into_inner()));
         for h in handles {
             let _ = h.await;
         }
@@ -134,9 +145,19 @@ async fn run_one(inner: &Arc<Inner>, owner: &str, record: EvaluationRecord) {
     let id = record.id;
     let span = tracing::info_span!("evaluation", %id, attempt = record.attempts);
     let token = inner.shutdown.child_token();
-    inner.running.lock().unwrap_or_else(|p| p.into_inner()).insert(id, token.clone());
-    let outcome = execute(inner, owner, &record, &token).instrument(span).await;
-    inner.running.lock().unwrap_or_else(|p| p.into_inner()).remove(&id);
+    inner
+        .running
+        .lock()
+        .unwrap_or_else(|p| p.into_inner())
+        .insert(id, token.clone());
+    let outcome = execute(inner, owner, &record, &token)
+        .instrument(span)
+        .await;
+    inner
+        .running
+        .lock()
+        .unwrap_or_else(|p| p.into_inner())
+        .remove(&id);
     if let Err(e) = outcome {
         tracing::error!(error = %e, "recording an evaluation's outcome failed");
     }
@@ -164,7 +185,11 @@ async fn execute(
         Ok(job) => job,
         Err(e) => {
             tracing::error!(error = %e, "preparing the evaluation failed");
-            let p = problem(500, "the evaluation could not be prepared; see the service log", None);
+            let p = problem(
+                500,
+                "the evaluation could not be prepared; see the service log",
+                None,
+            );
             store.finish_failed(id, owner, &p).await?;
             return Ok(());
         }
@@ -190,10 +215,18 @@ async fn execute(
             }
         })
     };
-    let ended = child::run(&inner.config.exe, &task, &inner.config.limits, token, |stage, done, total| {
-        let stage = serde_json::to_value(stage).ok().and_then(|v| v.as_str().map(str::to_string));
-        let _ = tx.send(Some(Progress { stage, done, total }));
-    })
+    let ended = child::run(
+        &inner.config.exe,
+        &task,
+        &inner.config.limits,
+        token,
+        |stage, done, total| {
+            let stage = serde_json::to_value(stage)
+                .ok()
+                .and_then(|v| v.as_str().map(str::to_string));
+            let _ = tx.send(Some(Progress { stage, done, total }));
+        },
+    )
     .await;
     drop(tx);
     let _ = writer.await;
@@ -209,11 +242,18 @@ async fn execute(
                 FailureKind::Io => 500,
                 _ => 422,
             };
-            store.finish_failed(id, owner, &problem(status, &f.message, f.field.as_deref())).await?;
+            store
+                .finish_failed(id, owner, &problem(status, &f.message, f.field.as_deref()))
+                .await?;
         }
         Ok(Ended::Answer(other)) => {
-            tracing::error!(?other, "the engine process answered an evaluation with something else");
-            store.finish_failed(id, owner, &problem(500, "the engine gave no report", None)).await?;
+            tracing::error!(
+                ?other,
+                "the engine process answered an evaluation with something else"
+            );
+            store
+                .finish_failed(id, owner, &problem(500, "the engine gave no report", None))
+                .await?;
         }
         Ok(Ended::Canceled) if inner.shutdown.is_cancelled() => {
             tracing::info!("shutting down: the evaluation goes back to the queue");
@@ -222,10 +262,14 @@ async fn execute(
         Ok(Ended::Canceled) => tracing::info!("canceled"),
         Ok(Ended::TimedOut) => {
             let detail = format!("the evaluation took longer than its limit of {limit_s} s");
-            store.finish_failed(id, owner, &problem(422, &detail, None)).await?;
+            store
+                .finish_failed(id, owner, &problem(422, &detail, None))
+                .await?;
         }
         Ok(Ended::Crashed(how)) => {
-            store.finish_failed(id, owner, &problem(422, &how, None)).await?;
+            store
+                .finish_failed(id, owner, &problem(422, &how, None))
+                .await?;
         }
         Err(e) => {
             tracing::error!(error = %e, "starting the engine process failed");
@@ -250,9 +294,13 @@ pub struct JobParts<'a> {
 
 /// Everything the engine needs, from the stored records.
 pub async fn build_job(store: &Store, parts: JobParts<'_>) -> Result<Job, StoreError> {
-    let missing = |what: String| StoreError::Corrupt(format!("{what} is referenced but not stored"));
+    let missing =
+        |what: String| StoreError::Corrupt(format!("{what} is referenced but not stored"));
     let model = |id: Uuid| async move {
-        let m = store.model(id).await?.ok_or_else(|| missing(format!("model {id}")))?;
+        let m = store
+            .model(id)
+            .await?
+            .ok_or_else(|| missing(format!("model {id}")))?;
         Ok::<_, StoreError>(ModelRef {
             path: store.blobs.path_of(BlobKind::Model, &m.sha256),
             id: m.id,
@@ -266,7 +314,10 @@ pub async fn build_job(store: &Store, parts: JobParts<'_>) -> Result<Job, StoreE
     for &sid in parts.students {
         students.push(model(sid).await?);
     }
-    let d = store.dataset(parts.dataset).await?.ok_or_else(|| missing(format!("dataset {}", parts.dataset)))?;
+    let d = store
+        .dataset(parts.dataset)
+        .await?
+        .ok_or_else(|| missing(format!("dataset {}", parts.dataset)))?;
     Ok(Job {
         evaluation: parts.id,
         project: parts.project.to_string(),

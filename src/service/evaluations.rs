@@ -11,8 +11,8 @@ use super::App;
 use crate::engine::settings::{Gates, LatencySettings, OutputKinds, RankBy, Settings};
 use crate::error::AppError;
 use crate::queue::child::Ended;
-use crate::queue::{JobParts, build_job};
 use crate::queue::protocol::{Message, Task};
+use crate::queue::{JobParts, build_job};
 use crate::store::{CancelOutcome, EvaluationFilter, EvaluationRecord, NewEvaluation, Page};
 
 fn default_project() -> String {
@@ -72,17 +72,29 @@ pub struct ListQuery {
 }
 
 impl App {
-    pub async fn create_evaluation(&self, req: EvaluationRequest) -> Result<EvaluationRecord, AppError> {
+    pub async fn create_evaluation(
+        &self,
+        req: EvaluationRequest,
+    ) -> Result<EvaluationRecord, AppError> {
         if req.project.trim().is_empty() {
-            return Err(AppError::unprocessable("project must not be empty", Some("project")));
+            return Err(AppError::unprocessable(
+                "project must not be empty",
+                Some("project"),
+            ));
         }
         if req.students.is_empty() {
-            return Err(AppError::unprocessable("give at least one student", Some("students")));
+            return Err(AppError::unprocessable(
+                "give at least one student",
+                Some("students"),
+            ));
         }
         for (key, value) in &req.tags {
             if !value.is_string() {
                 let field = format!("tags.{key}");
-                return Err(AppError::unprocessable("tag values must be strings", Some(&field)));
+                return Err(AppError::unprocessable(
+                    "tag values must be strings",
+                    Some(&field),
+                ));
             }
         }
         let settings = req.settings()?;
@@ -97,7 +109,10 @@ impl App {
             })?);
         }
         let dataset = self.store.dataset(req.dataset).await?.ok_or_else(|| {
-            AppError::unprocessable(format!("no evaluation set has id {}", req.dataset), Some("dataset"))
+            AppError::unprocessable(
+                format!("no evaluation set has id {}", req.dataset),
+                Some("dataset"),
+            )
         })?;
         settings
             .check(dataset.has_labels)
@@ -105,7 +120,8 @@ impl App {
 
         let id = Uuid::now_v7();
         let created_at = OffsetDateTime::now_utc();
-        let mut applied = serde_json::to_value(&settings).map_err(|e| AppError::Internal(e.to_string()))?;
+        let mut applied =
+            serde_json::to_value(&settings).map_err(|e| AppError::Internal(e.to_string()))?;
         applied["project"] = json!(req.project);
         applied["teacher"] = json!(teacher.id);
         applied["students"] = json!(req.students);
@@ -146,9 +162,16 @@ impl App {
             .map_err(|e| AppError::Internal(format!("starting the engine process failed: {e}")))?;
         match ended {
             Ended::Answer(Message::Checked) => Ok(()),
-            Ended::Answer(Message::Failed(f)) => Err(AppError::unprocessable(f.message, f.field.as_deref())),
-            Ended::Answer(other) => Err(AppError::Internal(format!("unexpected check answer {other:?}"))),
-            Ended::TimedOut => Err(AppError::unprocessable("checking the models took longer than the limit", None)),
+            Ended::Answer(Message::Failed(f)) => {
+                Err(AppError::unprocessable(f.message, f.field.as_deref()))
+            }
+            Ended::Answer(other) => Err(AppError::Internal(format!(
+                "unexpected check answer {other:?}"
+            ))),
+            Ended::TimedOut => Err(AppError::unprocessable(
+                "checking the models took longer than the limit",
+                None,
+            )),
             Ended::Crashed(how) => Err(AppError::unprocessable(how, None)),
             Ended::Canceled => Err(AppError::Unavailable("the service is shutting down".into())),
         }
@@ -162,7 +185,10 @@ impl App {
     }
 
     pub async fn evaluations(&self, q: &ListQuery) -> Result<Page<EvaluationRecord>, AppError> {
-        Ok(self.store.list_evaluations(&q.filter, q.limit, q.cursor).await?)
+        Ok(self
+            .store
+            .list_evaluations(&q.filter, q.limit, q.cursor)
+            .await?)
     }
 
     /// The stored report, as the JSON text the engine produced.
@@ -187,7 +213,9 @@ impl App {
                 "evaluation {id} already finished ({}); only queued or running ones can be canceled",
                 r.status.as_str()
             ))),
-            CancelOutcome::NotFound => Err(AppError::NotFound(format!("no evaluation has id {id}"))),
+            CancelOutcome::NotFound => {
+                Err(AppError::NotFound(format!("no evaluation has id {id}")))
+            }
         }
     }
 }

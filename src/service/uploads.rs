@@ -37,7 +37,10 @@ impl App {
                 Ok(c) => c,
                 Err(e) => {
                     incoming.abandon().await;
-                    return Err(AppError::bad_request(format!("the upload broke off: {e}"), None));
+                    return Err(AppError::bad_request(
+                        format!("the upload broke off: {e}"),
+                        None,
+                    ));
                 }
             };
             if incoming.bytes() + chunk.len() as u64 > limit {
@@ -55,15 +58,20 @@ impl App {
 
     /// Runs an upload check in a child; any refusal becomes a 422.
     async fn inspect(&self, task: Task, received: &Received) -> Result<Message, AppError> {
-        let ended = self.queue.check(&task).await.map_err(|e| {
-            AppError::Internal(format!("starting the engine process failed: {e}"))
-        });
+        let ended =
+            self.queue.check(&task).await.map_err(|e| {
+                AppError::Internal(format!("starting the engine process failed: {e}"))
+            });
         let refuse = |detail: String| AppError::unprocessable(detail, None);
         let outcome = match ended? {
             Ended::Answer(Message::Failed(f)) => Err(refuse(f.message)),
             Ended::Answer(m) => Ok(m),
-            Ended::TimedOut => Err(refuse("checking the upload took longer than the limit".into())),
-            Ended::Crashed(how) => Err(refuse(format!("the engine could not load the upload: {how}"))),
+            Ended::TimedOut => Err(refuse(
+                "checking the upload took longer than the limit".into(),
+            )),
+            Ended::Crashed(how) => Err(refuse(format!(
+                "the engine could not load the upload: {how}"
+            ))),
             Ended::Canceled => Err(AppError::Unavailable("the service is shutting down".into())),
         };
         if outcome.is_err() {
@@ -85,11 +93,26 @@ impl App {
         let received = self.receive(body, declared_len).await?;
         if let Some(existing) = self.store.model_by_sha(&received.sha256).await? {
             self.store.blobs.discard(&received).await;
-            return Ok(Uploaded { record: existing, created: false });
+            return Ok(Uploaded {
+                record: existing,
+                created: false,
+            });
         }
-        let info = match self.inspect(Task::InspectModel { path: received.path.clone() }, &received).await? {
+        let info = match self
+            .inspect(
+                Task::InspectModel {
+                    path: received.path.clone(),
+                },
+                &received,
+            )
+            .await?
+        {
             Message::Model(info) => *info,
-            other => return Err(AppError::Internal(format!("unexpected check answer {other:?}"))),
+            other => {
+                return Err(AppError::Internal(format!(
+                    "unexpected check answer {other:?}"
+                )));
+            }
         };
         self.store.blobs.commit(BlobKind::Model, &received).await?;
         let record = ModelRecord {
@@ -117,13 +140,31 @@ impl App {
         let received = self.receive(body, declared_len).await?;
         if let Some(existing) = self.store.dataset_by_sha(&received.sha256).await? {
             self.store.blobs.discard(&received).await;
-            return Ok(Uploaded { record: existing, created: false });
+            return Ok(Uploaded {
+                record: existing,
+                created: false,
+            });
         }
-        let info = match self.inspect(Task::InspectDataset { path: received.path.clone() }, &received).await? {
+        let info = match self
+            .inspect(
+                Task::InspectDataset {
+                    path: received.path.clone(),
+                },
+                &received,
+            )
+            .await?
+        {
             Message::Dataset(info) => info,
-            other => return Err(AppError::Internal(format!("unexpected check answer {other:?}"))),
+            other => {
+                return Err(AppError::Internal(format!(
+                    "unexpected check answer {other:?}"
+                )));
+            }
         };
-        self.store.blobs.commit(BlobKind::Dataset, &received).await?;
+        self.store
+            .blobs
+            .commit(BlobKind::Dataset, &received)
+            .await?;
         let record = DatasetRecord {
             id: Uuid::now_v7(),
             name,

@@ -51,7 +51,9 @@ impl Blobs {
         for sub in ["models", "datasets", "incoming", "teacher-scores"] {
             fs::create_dir_all(root.join(sub)).await?;
         }
-        Ok(Blobs { root: root.to_owned() })
+        Ok(Blobs {
+            root: root.to_owned(),
+        })
     }
 
     pub fn path_of(&self, kind: BlobKind, sha256: &str) -> PathBuf {
@@ -69,9 +71,17 @@ impl Blobs {
     }
 
     pub async fn begin(&self) -> Result<Incoming, StoreError> {
-        let path = self.root.join("incoming").join(uuid::Uuid::now_v7().to_string());
+        let path = self
+            .root
+            .join("incoming")
+            .join(uuid::Uuid::now_v7().to_string());
         let file = fs::File::create(&path).await?;
-        Ok(Incoming { file, path, hasher: Sha256::new(), bytes: 0 })
+        Ok(Incoming {
+            file,
+            path,
+            hasher: Sha256::new(),
+            bytes: 0,
+        })
     }
 
     /// Moves a received file to its content address; a file already there is

@@ -68,19 +68,26 @@ impl Store {
     }
 
     pub async fn model(&self, id: Uuid) -> Result<Option<ModelRecord>, StoreError> {
-        let row = sqlx::query(concat!("SELECT ", model_columns!(), " FROM models WHERE id = ?1"))
-            .bind(id.to_string())
-            .fetch_optional(&self.pool)
-            .await?;
+        let row = sqlx::query(concat!(
+            "SELECT ",
+            model_columns!(),
+            " FROM models WHERE id = ?1"
+        ))
+        .bind(id.to_string())
+        .fetch_optional(&self.pool)
+        .await?;
         row.as_ref().map(model_from_row).transpose()
     }
 
     pub async fn model_by_sha(&self, sha256: &str) -> Result<Option<ModelRecord>, StoreError> {
-        let row =
-            sqlx::query(concat!("SELECT ", model_columns!(), " FROM models WHERE sha256 = ?1"))
-                .bind(sha256)
-                .fetch_optional(&self.pool)
-                .await?;
+        let row = sqlx::query(concat!(
+            "SELECT ",
+            model_columns!(),
+            " FROM models WHERE sha256 = ?1"
+        ))
+        .bind(sha256)
+        .fetch_optional(&self.pool)
+        .await?;
         row.as_ref().map(model_from_row).transpose()
     }
 
@@ -102,7 +109,10 @@ impl Store {
         .bind(limit as i64 + 1)
         .fetch_all(&self.pool)
         .await?;
-        let items = rows.iter().map(model_from_row).collect::<Result<Vec<_>, _>>()?;
+        let items = rows
+            .iter()
+            .map(model_from_row)
+            .collect::<Result<Vec<_>, _>>()?;
         Ok(page(items, limit, |m| m.id.to_string()))
     }
 
@@ -134,20 +144,26 @@ impl Store {
     }
 
     pub async fn dataset(&self, id: Uuid) -> Result<Option<DatasetRecord>, StoreError> {
-        let row =
-            sqlx::query(concat!("SELECT ", dataset_columns!(), " FROM datasets WHERE id = ?1"))
-                .bind(id.to_string())
-                .fetch_optional(&self.pool)
-                .await?;
+        let row = sqlx::query(concat!(
+            "SELECT ",
+            dataset_columns!(),
+            " FROM datasets WHERE id = ?1"
+        ))
+        .bind(id.to_string())
+        .fetch_optional(&self.pool)
+        .await?;
         row.as_ref().map(dataset_from_row).transpose()
     }
 
     pub async fn dataset_by_sha(&self, sha256: &str) -> Result<Option<DatasetRecord>, StoreError> {
-        let row =
-            sqlx::query(concat!("SELECT ", dataset_columns!(), " FROM datasets WHERE sha256 = ?1"))
-                .bind(sha256)
-                .fetch_optional(&self.pool)
-                .await?;
+        let row = sqlx::query(concat!(
+            "SELECT ",
+            dataset_columns!(),
+            " FROM datasets WHERE sha256 = ?1"
+        ))
+        .bind(sha256)
+        .fetch_optional(&self.pool)
+        .await?;
         row.as_ref().map(dataset_from_row).transpose()
     }
 
@@ -168,7 +184,10 @@ impl Store {
         .bind(limit as i64 + 1)
         .fetch_all(&self.pool)
         .await?;
-        let items = rows.iter().map(dataset_from_row).collect::<Result<Vec<_>, _>>()?;
+        let items = rows
+            .iter()
+            .map(dataset_from_row)
+            .collect::<Result<Vec<_>, _>>()?;
         Ok(page(items, limit, |d| d.id.to_string()))
     }
 }

@@ -11,8 +11,8 @@ use time::OffsetDateTime;
 use uuid::Uuid;
 
 use super::{
-    CancelOutcome, EvaluationFilter, EvaluationRecord, MAX_ATTEMPTS, NewEvaluation, Page,
-    Progress, Status, Store, StoreError, fmt_time, page, parse_time,
+    CancelOutcome, EvaluationFilter, EvaluationRecord, MAX_ATTEMPTS, NewEvaluation, Page, Progress,
+    Status, Store, StoreError, fmt_time, page, parse_time,
 };
 use crate::report::{Report, Verdict};
 
@@ -33,7 +33,10 @@ fn verdict_str(v: Verdict) -> &'static str {
 
 fn evaluation_from_row(row: &SqliteRow) -> Result<EvaluationRecord, StoreError> {
     let opt_time = |col: &str| -> Result<Option<OffsetDateTime>, StoreError> {
-        row.try_get::<Option<String>, _>(col)?.as_deref().map(parse_time).transpose()
+        row.try_get::<Option<String>, _>(col)?
+            .as_deref()
+            .map(parse_time)
+            .transpose()
     };
     let status: String = row.try_get("status")?;
     let verdict = match row.try_get::<Option<String>, _>("verdict")?.as_deref() {
@@ -73,13 +76,21 @@ fn evaluation_from_row(row: &SqliteRow) -> Result<EvaluationRecord, StoreError> 
 
 /// Tags as (key, text) pairs; a non-string value is stored as its JSON text.
 fn tag_pairs(tags: &Map<String, Value>) -> impl Iterator<Item = (&str, String)> {
-    tags.iter().map(|(k, v)| (k.as_str(), v.as_str().map_or_else(|| v.to_string(), str::to_string)))
+    tags.iter().map(|(k, v)| {
+        (
+            k.as_str(),
+            v.as_str().map_or_else(|| v.to_string(), str::to_string),
+        )
+    })
 }
 
 impl Store {
     /// Stores a new queued evaluation with its students and tags in one
     /// transaction, so a worker never sees half of it.
-    pub async fn create_evaluation(&self, e: &NewEvaluation) -> Result<EvaluationRecord, StoreError> {
+    pub async fn create_evaluation(
+        &self,
+        e: &NewEvaluation,
+    ) -> Result<EvaluationRecord, StoreError> {
         let mut tx = self.pool.begin().await?;
         let id = e.id.to_string();
         sqlx::query(
@@ -106,12 +117,14 @@ impl Store {
             .await?;
         }
         for (key, value) in tag_pairs(&e.tags) {
-            sqlx::query("INSERT INTO evaluation_tags (evaluation_id, key, value) VALUES (?1, ?2, ?3)")
-                .bind(&id)
-                .bind(key)
-                .bind(value)
-                .execute(&mut *tx)
-                .await?;
+            sqlx::query(
+                "INSERT INTO evaluation_tags (evaluation_id, key, value) VALUES (?1, ?2, ?3)",
+            )
+            .bind(&id)
+            .bind(key)
+            .bind(value)
+            .execute(&mut *tx)
+            .await?;
         }
         tx.commit().await?;
         self.evaluation(e.id)
@@ -139,7 +152,9 @@ impl Store {
         .bind(id.to_string())
         .fetch_all(&self.pool)
         .await?;
-        rows.iter().map(|r| Ok(Uuid::parse_str(r.try_get("model_id")?)?)).collect()
+        rows.iter()
+            .map(|r| Ok(Uuid::parse_str(r.try_get("model_id")?)?))
+            .collect()
     }
 
     /// Evaluations newest first.
@@ -170,7 +185,10 @@ impl Store {
         .bind(limit as i64 + 1)
         .fetch_all(&self.pool)
         .await?;
-        let items = rows.iter().map(evaluation_from_row).collect::<Result<Vec<_>, _>>()?;
+        let items = rows
+            .iter()
+            .map(evaluation_from_row)
+            .collect::<Result<Vec<_>, _>>()?;
         Ok(page(items, limit, |e| e.id.to_string()))
     }
 
@@ -272,7 +290,12 @@ impl Store {
     }
 
     /// Marks a running evaluation failed with a problem object.
-    pub async fn finish_failed(&self, id: Uuid, owner: &str, problem: &Value) -> Result<bool, StoreError> {
+    pub async fn finish_failed(
+        &self,
+        id: Uuid,
+        owner: &str,
+        problem: &Value,
+    ) -> Result<bool, StoreError> {
         let done = sqlx::query(
             "UPDATE evaluations SET status = 'failed', finished_at = ?1, error = ?2, \
              lease_owner = NULL WHERE id = ?3 AND status = 'running' AND lease_owner = ?4",

@@ -12,7 +12,9 @@ use std::path::Path;
 use std::str::FromStr;
 use std::time::Duration;
 
-use sqlx::sqlite::{SqliteConnectOptions, SqliteJournalMode, SqlitePool, SqlitePoolOptions, SqliteSynchronous};
+use sqlx::sqlite::{
+    SqliteConnectOptions, SqliteJournalMode, SqlitePool, SqlitePoolOptions, SqliteSynchronous,
+};
 use time::OffsetDateTime;
 use time::format_description::well_known::Rfc3339;
 
@@ -42,7 +44,10 @@ impl Store {
             .synchronous(SqliteSynchronous::Normal)
             .busy_timeout(Duration::from_secs(10))
             .foreign_keys(true);
-        let pool = SqlitePoolOptions::new().max_connections(8).connect_with(options).await?;
+        let pool = SqlitePoolOptions::new()
+            .max_connections(8)
+            .connect_with(options)
+            .await?;
         sqlx::migrate!("./migrations").run(&pool).await?;
         let blobs = Blobs::open(data_dir).await?;
         blobs.sweep_incoming().await?;
@@ -60,7 +65,8 @@ impl Store {
 }
 
 fn fmt_time(t: OffsetDateTime) -> String {
-    t.format(&Rfc3339).expect("UTC times always format as RFC 3339")
+    t.format(&Rfc3339)
+        .expect("UTC times always format as RFC 3339")
 }
 
 fn parse_time(s: &str) -> Result<OffsetDateTime, StoreError> {
@@ -79,5 +85,8 @@ fn page<T>(mut rows: Vec<T>, limit: u32, id: impl Fn(&T) -> String) -> Page<T> {
     } else {
         None
     };
-    Page { items: rows, next_cursor }
+    Page {
+        items: rows,
+        next_cursor,
+    }
 }

@@ -56,9 +56,15 @@ impl Status {
     }
 
     pub fn parse(s: &str) -> Option<Status> {
-        [Status::Queued, Status::Running, Status::Succeeded, Status::Failed, Status::Canceled]
-            .into_iter()
-            .find(|st| st.as_str() == s)
+        [
+            Status::Queued,
+            Status::Running,
+            Status::Succeeded,
+            Status::Failed,
+            Status::Canceled,
+        ]
+        .into_iter()
+        .find(|st| st.as_str() == s)
     }
 
     pub fn is_finished(self) -> bool {

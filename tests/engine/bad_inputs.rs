@@ -31,7 +31,10 @@ fn external_data_is_refused_without_reading_the_named_file() {
     assert!(matches!(err, EngineError::InvalidModel(_)), "{err:?}");
     let msg = err.to_string();
     assert!(msg.contains("external data"), "{msg}");
-    assert!(!msg.contains("Canonicalizing") && !msg.contains("hostname"), "{msg}");
+    assert!(
+        !msg.contains("Canonicalizing") && !msg.contains("hostname"),
+        "{msg}"
+    );
 }
 
 #[test]
@@ -39,7 +42,10 @@ fn an_empty_file_is_not_a_model() {
     let dir = tempfile::tempdir().unwrap();
     let path = dir.path().join("empty.onnx");
     std::fs::write(&path, b"").unwrap();
-    assert!(matches!(inspect_model(&path), Err(EngineError::InvalidModel(_))));
+    assert!(matches!(
+        inspect_model(&path),
+        Err(EngineError::InvalidModel(_))
+    ));
 }
 
 #[test]
@@ -56,7 +62,10 @@ fn a_set_that_does_not_fit_the_model_names_the_array_and_the_axis() {
     let err = proctor::engine::feed::bind(&model, &set, "teacher").unwrap_err();
     assert!(matches!(err, EngineError::Mismatch(_)), "{err:?}");
     let msg = err.to_string();
-    assert!(msg.contains("'features'") && msg.contains("axis 1"), "{msg}");
+    assert!(
+        msg.contains("'features'") && msg.contains("axis 1"),
+        "{msg}"
+    );
 }
 
 #[test]
@@ -71,7 +80,10 @@ fn a_truncated_npz_is_refused() {
     let bytes = std::fs::read(case_dir("mlp").join("data.npz")).unwrap();
     let path = dir.path().join("cut.npz");
     std::fs::write(&path, &bytes[..bytes.len() / 2]).unwrap();
-    assert!(matches!(inspect_dataset(&path), Err(EngineError::InvalidDataset(_))));
+    assert!(matches!(
+        inspect_dataset(&path),
+        Err(EngineError::InvalidDataset(_))
+    ));
 }
 
 #[test]

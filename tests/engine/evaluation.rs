@@ -4,7 +4,9 @@ use std::path::Path;
 use std::sync::Mutex;
 use std::sync::atomic::AtomicBool;
 
-use proctor::engine::evaluate::{Alone, DatasetRef, Hooks, Job, ModelRef, Options, Stage, evaluate, prepare};
+use proctor::engine::evaluate::{
+    Alone, DatasetRef, Hooks, Job, ModelRef, Options, Stage, evaluate, prepare,
+};
 use proctor::engine::settings::{Gates, Settings};
 use proctor::engine::{EngineError, Outcome};
 use proctor::report::Verdict;
@@ -65,7 +67,15 @@ fn quick(mut s: Settings) -> Settings {
 
 fn run(job: &Job, options: &Options) -> Result<Outcome, EngineError> {
     let cancel = AtomicBool::new(false);
-    evaluate(job, options, &Hooks { progress: &|_, _, _| {}, cancel: &cancel, cpu: &Alone })
+    evaluate(
+        job,
+        options,
+        &Hooks {
+            progress: &|_, _, _| {},
+            cancel: &cancel,
+            cpu: &Alone,
+        },
+    )
 }
 
 /// The figures a report holds for a candidate, shaped like expected.json.
@@ -85,7 +95,14 @@ fn candidate_figures(report: &Value, name: &str) -> Value {
 
 #[test]
 fn a_full_evaluation_reproduces_the_reference_figures_within_float32_noise() {
-    for case in ["mlp", "text", "softmax_head", "ties", "fixed_batch", "unlabeled"] {
+    for case in [
+        "mlp",
+        "text",
+        "softmax_head",
+        "ties",
+        "fixed_batch",
+        "unlabeled",
+    ] {
         let exp = expected(case);
         let students: Vec<String> = exp["models"]
             .as_object()
@@ -95,8 +112,11 @@ fn a_full_evaluation_reproduces_the_reference_figures_within_float32_noise() {
             .map(|(_, m)| m["file"].as_str().unwrap().to_string())
             .collect();
         let refs: Vec<&str> = students.iter().map(String::as_str).collect();
-        let out = run(&job(case, &refs, quick(settings_of(case))), &Options::default())
-            .unwrap_or_else(|e| panic!("{case}: {e}"));
+        let out = run(
+            &job(case, &refs, quick(settings_of(case))),
+            &Options::default(),
+        )
+        .unwrap_or_else(|e| panic!("{case}: {e}"));
         let report = serde_json::to_value(&out.report).unwrap();
         for (stem, want) in exp["students"].as_object().unwrap() {
             let mut want = want.clone();
@@ -108,25 +128,52 @@ fn a_full_evaluation_reproduces_the_reference_figures_within_float32_noise() {
             let got = candidate_figures(&report, stem);
             assert_matches(&got, &want, ENGINES_F32, &format!("{case}/{stem}"));
         }
-        assert_eq!(report["teacher"]["output_kind"], exp["models"]["teacher"]["output_kind"]);
+        assert_eq!(
+            report["teacher"]["output_kind"],
+            exp["models"]["teacher"]["output_kind"]
+        );
         assert_eq!(report["dataset"]["samples"], exp["samples"]);
     }
 }
 
 #[test]
 fn a_report_has_every_section_of_the_contract() {
-    let out = run(&job("mlp", &["student_wide.onnx"], quick(Settings::default())), &Options::default())
-        .unwrap();
+    let out = run(
+        &job("mlp", &["student_wide.onnx"], quick(Settings::default())),
+        &Options::default(),
+    )
+    .unwrap();
     let r = serde_json::to_value(&out.report).unwrap();
     for key in [
-        "evaluation", "project", "created_at", "finished_at", "environment", "settings", "dataset",
-        "teacher", "candidates", "verdict", "recommended",
+        "evaluation",
+        "project",
+        "created_at",
+        "finished_at",
+        "environment",
+        "settings",
+        "dataset",
+        "teacher",
+        "candidates",
+        "verdict",
+        "recommended",
     ] {
         assert!(r.get(key).is_some(), "report lacks {key}");
     }
     let c = &r["candidates"][0];
-    for key in ["p50_ms", "p90_ms", "p99_ms", "mean_ms", "stdev_ms", "throughput_sps", "speedup"] {
-        assert!(c["latency"][key].is_number(), "latency lacks {key}: {}", c["latency"]);
+    for key in [
+        "p50_ms",
+        "p90_ms",
+        "p99_ms",
+        "mean_ms",
+        "stdev_ms",
+        "throughput_sps",
+        "speedup",
+    ] {
+        assert!(
+            c["latency"][key].is_number(),
+            "latency lacks {key}: {}",
+            c["latency"]
+        );
     }
     assert!(r["teacher"]["latency"].get("speedup").is_none());
     assert_eq!(r["environment"]["engine"]["name"], "tract");
@@ -134,7 +181,10 @@ fn a_report_has_every_section_of_the_contract() {
     assert_eq!(r["teacher"]["accuracy"]["ece_bins"], 15);
     // No gates: every candidate passes, so the verdict is go (metrics.md, Ranking 4).
     assert_eq!(out.report.verdict, Verdict::Go);
-    assert_eq!(out.report.recommended, Some(out.report.candidates[0].model.id));
+    assert_eq!(
+        out.report.recommended,
+        Some(out.report.candidates[0].model.id)
+    );
 }
 
 #[test]
@@ -142,7 +192,11 @@ fn latency_records_exactly_the_requested_iterations() {
     let mut s = Settings::default();
     s.latency.warmup = 0;
     s.latency.iterations = 1;
-    let out = run(&job("mlp", &["student_narrow.onnx"], s), &Options::default()).unwrap();
+    let out = run(
+        &job("mlp", &["student_narrow.onnx"], s),
+        &Options::default(),
+    )
+    .unwrap();
     let l = &out.report.candidates[0].latency.own;
     // One sample: every percentile is that sample and the sample stdev is undefined.
     assert_eq!(l.p50_ms, l.p99_ms);
@@ -153,14 +207,30 @@ fn latency_records_exactly_the_requested_iterations() {
 #[test]
 fn a_second_evaluation_against_the_same_teacher_and_set_reuses_its_scores() {
     let cache = tempfile::tempdir().unwrap();
-    let options = Options { teacher_cache: Some(cache.path().to_owned()), offline_threads: 1 };
-    let first = run(&job("mlp", &["student_wide.onnx"], quick(Settings::default())), &options).unwrap();
-    let second =
-        run(&job("mlp", &["student_narrow.onnx"], quick(Settings::default())), &options).unwrap();
+    let options = Options {
+        teacher_cache: Some(cache.path().to_owned()),
+        offline_threads: 1,
+    };
+    let first = run(
+        &job("mlp", &["student_wide.onnx"], quick(Settings::default())),
+        &options,
+    )
+    .unwrap();
+    let second = run(
+        &job("mlp", &["student_narrow.onnx"], quick(Settings::default())),
+        &options,
+    )
+    .unwrap();
     assert!(!first.timings.teacher_from_cache);
     assert!(second.timings.teacher_from_cache);
-    assert_eq!(first.report.teacher.accuracy, second.report.teacher.accuracy);
-    assert_eq!(first.report.teacher.latency.throughput_sps, second.report.teacher.latency.throughput_sps);
+    assert_eq!(
+        first.report.teacher.accuracy,
+        second.report.teacher.accuracy
+    );
+    assert_eq!(
+        first.report.teacher.latency.throughput_sps,
+        second.report.teacher.latency.throughput_sps
+    );
 }
 
 #[test]
@@ -169,13 +239,26 @@ fn progress_walks_through_every_stage_and_ends_complete() {
     let cancel = AtomicBool::new(false);
     let progress = |s: Stage, d: u64, t: u64| seen.lock().unwrap().push((s, d, t));
     evaluate(
-        &job("binary", &["student_small.onnx"], quick(Settings::default())),
+        &job(
+            "binary",
+            &["student_small.onnx"],
+            quick(Settings::default()),
+        ),
         &Options::default(),
-        &Hooks { progress: &progress, cancel: &cancel, cpu: &Alone },
+        &Hooks {
+            progress: &progress,
+            cancel: &cancel,
+            cpu: &Alone,
+        },
     )
     .unwrap();
     let seen = seen.into_inner().unwrap();
-    for stage in [Stage::Loading, Stage::Offline, Stage::Scoring, Stage::Latency] {
+    for stage in [
+        Stage::Loading,
+        Stage::Offline,
+        Stage::Scoring,
+        Stage::Latency,
+    ] {
         let last = seen.iter().rev().find(|(s, _, _)| *s == stage).unwrap();
         assert_eq!(last.1, last.2, "{stage:?} did not finish: {last:?}");
     }
@@ -187,7 +270,11 @@ fn a_raised_cancel_flag_stops_the_evaluation() {
     let err = evaluate(
         &job("mlp", &["student_wide.onnx"], Settings::default()),
         &Options::default(),
-        &Hooks { progress: &|_, _, _| {}, cancel: &cancel, cpu: &Alone },
+        &Hooks {
+            progress: &|_, _, _| {},
+            cancel: &cancel,
+            cpu: &Alone,
+        },
     )
     .err()
     .unwrap();
@@ -201,7 +288,10 @@ fn teacher_and_student_with_different_class_counts_are_refused_before_running() 
     let err = prepare(&j).err().unwrap();
     assert!(matches!(err, EngineError::Mismatch(_)), "{err:?}");
     let msg = err.to_string();
-    assert!(msg.contains("10 classes") && msg.contains("scores 6"), "{msg}");
+    assert!(
+        msg.contains("10 classes") && msg.contains("scores 6"),
+        "{msg}"
+    );
 }
 
 #[test]
@@ -210,7 +300,10 @@ fn labels_beyond_the_class_count_are_refused_before_running() {
     j.dataset = dataset_ref(&case_dir("bad").join("big_labels.npz"));
     let err = prepare(&j).err().unwrap();
     let msg = err.to_string();
-    assert!(msg.contains("label 12 at sample 9") && msg.contains("[0, 10)"), "{msg}");
+    assert!(
+        msg.contains("label 12 at sample 9") && msg.contains("[0, 10)"),
+        "{msg}"
+    );
 }
 
 #[test]
@@ -220,14 +313,21 @@ fn a_model_that_outputs_nan_fails_naming_the_model_and_the_sample() {
     let err = run(&j, &Options::default()).err().unwrap();
     assert!(matches!(err, EngineError::BadOutput(_)), "{err:?}");
     let msg = err.to_string();
-    assert!(msg.contains("'nan_output'") && msg.contains("NaN at sample"), "{msg}");
+    assert!(
+        msg.contains("'nan_output'") && msg.contains("NaN at sample"),
+        "{msg}"
+    );
 }
 
 #[test]
 fn a_gate_that_fails_makes_the_verdict_no_go_and_says_which() {
     let mut s = quick(Settings::default());
-    s.gates = Gates::parse(json!({"min_agreement": 0.99, "max_bytes": 1e9}).as_object().unwrap())
-        .unwrap();
+    s.gates = Gates::parse(
+        json!({"min_agreement": 0.99, "max_bytes": 1e9})
+            .as_object()
+            .unwrap(),
+    )
+    .unwrap();
     let out = run(&job("mlp", &["student_wide.onnx"], s), &Options::default()).unwrap();
     assert_eq!(out.report.verdict, Verdict::NoGo);
     assert_eq!(out.report.recommended, None);
@@ -240,8 +340,11 @@ fn a_gate_that_fails_makes_the_verdict_no_go_and_says_which() {
 
 #[test]
 fn the_teacher_listed_as_a_student_is_a_self_check() {
-    let out = run(&job("mlp", &["teacher.onnx"], quick(Settings::default())), &Options::default())
-        .unwrap();
+    let out = run(
+        &job("mlp", &["teacher.onnx"], quick(Settings::default())),
+        &Options::default(),
+    )
+    .unwrap();
     let f = &out.report.candidates[0].fidelity;
     assert_eq!(f.agreement, 1.0);
     assert_eq!(f.kl, 0.0);

@@ -11,13 +11,22 @@ use serde_json::{Value, json};
 use crate::support::{CASES, ENGINES_F32, SAME_LOGITS, assert_matches, case_dir, expected};
 
 fn models(exp: &Value) -> Vec<(String, Value)> {
-    exp["models"].as_object().unwrap().iter().map(|(k, v)| (k.clone(), v.clone())).collect()
+    exp["models"]
+        .as_object()
+        .unwrap()
+        .iter()
+        .map(|(k, v)| (k.clone(), v.clone()))
+        .collect()
 }
 
 /// onnxruntime's output for one model, as saved by the generator.
 fn ort_logits(case: &str, stem: &str) -> Logits {
     let (shape, data) = npy::read_f64(&case_dir(case).join(format!("ort/{stem}.npy"))).unwrap();
-    assert_eq!(shape.len(), 2, "{case}/{stem}: reference output is not [N, C]");
+    assert_eq!(
+        shape.len(),
+        2,
+        "{case}/{stem}: reference output is not [N, C]"
+    );
     Logits::from_rows(shape[1], data)
 }
 
@@ -56,14 +65,24 @@ fn introspection_matches_what_the_onnx_package_reads() {
         for (stem, info) in models(&exp) {
             let m = Model::load(&case_dir(case).join(info["file"].as_str().unwrap())).unwrap();
             let what = format!("{case}/{stem}");
-            assert_eq!(m.info.parameters, info["parameters"].as_u64().unwrap(), "{what}: parameters");
+            assert_eq!(
+                m.info.parameters,
+                info["parameters"].as_u64().unwrap(),
+                "{what}: parameters"
+            );
             assert_eq!(m.info.opset, info["opset"].as_i64(), "{what}: opset");
             assert!(
-                m.info.producer.starts_with(info["producer"].as_str().unwrap()),
+                m.info
+                    .producer
+                    .starts_with(info["producer"].as_str().unwrap()),
                 "{what}: producer {}",
                 m.info.producer
             );
-            assert_eq!(serde_json::to_value(&m.info.inputs).unwrap(), info["inputs"], "{what}: inputs");
+            assert_eq!(
+                serde_json::to_value(&m.info.inputs).unwrap(),
+                info["inputs"],
+                "{what}: inputs"
+            );
             assert_eq!(
                 serde_json::to_value(&m.info.outputs).unwrap(),
                 info["outputs"],
@@ -86,11 +105,20 @@ fn figures_from_reference_logits(case: &str, exp: &Value, stem: &str) -> Value {
     let (teacher, tk) = to_logits(ort_logits(case, teacher_stem), OutputKindChoice::Auto);
     let (student, sk) = to_logits(ort_logits(case, stem), OutputKindChoice::Auto);
     let kind = |k: OutputKind| serde_json::to_value(k).unwrap();
-    assert_eq!(kind(tk), exp["models"][teacher_stem]["output_kind"], "{case}: teacher kind");
-    assert_eq!(kind(sk), exp["models"][stem]["output_kind"], "{case}/{stem}: kind");
+    assert_eq!(
+        kind(tk),
+        exp["models"][teacher_stem]["output_kind"],
+        "{case}: teacher kind"
+    );
+    assert_eq!(
+        kind(sk),
+        exp["models"][stem]["output_kind"],
+        "{case}/{stem}: kind"
+    );
     let fid = fidelity(&teacher, &student, t);
     let labels: Option<Vec<i64>> = exp["has_labels"].as_bool().unwrap().then(|| {
-        let set = proctor::engine::dataset::EvalSet::open(&case_dir(case).join("data.npz")).unwrap();
+        let set =
+            proctor::engine::dataset::EvalSet::open(&case_dir(case).join("data.npz")).unwrap();
         set.labels().unwrap().to_vec()
     });
     let acc = labels.as_ref().map(|y| {
@@ -116,15 +144,31 @@ fn every_figure_matches_numpy_scipy_and_statsmodels_from_the_same_logits() {
         let exp = expected(case);
         for (stem, want) in exp["students"].as_object().unwrap() {
             let got = figures_from_reference_logits(case, &exp, stem);
-            assert_matches(&got["fidelity"], &want["fidelity"], SAME_LOGITS, &format!("{case}/{stem}"));
-            assert_matches(&got["accuracy"], &want["accuracy"], SAME_LOGITS, &format!("{case}/{stem}"));
+            assert_matches(
+                &got["fidelity"],
+                &want["fidelity"],
+                SAME_LOGITS,
+                &format!("{case}/{stem}"),
+            );
+            assert_matches(
+                &got["accuracy"],
+                &want["accuracy"],
+                SAME_LOGITS,
+                &format!("{case}/{stem}"),
+            );
         }
         if let Some(want) = exp["teacher_accuracy"].as_object() {
             let teacher_stem = exp["teacher"].as_str().unwrap();
             let (t, _) = to_logits(ort_logits(case, teacher_stem), OutputKindChoice::Auto);
-            let set = proctor::engine::dataset::EvalSet::open(&case_dir(case).join("data.npz")).unwrap();
+            let set =
+                proctor::engine::dataset::EvalSet::open(&case_dir(case).join("data.npz")).unwrap();
             let got = serde_json::to_value(accuracy(&t, set.labels().unwrap())).unwrap();
-            assert_matches(&got, &Value::Object(want.clone()), SAME_LOGITS, &format!("{case}/teacher"));
+            assert_matches(
+                &got,
+                &Value::Object(want.clone()),
+                SAME_LOGITS,
+                &format!("{case}/teacher"),
+            );
         }
     }
 }

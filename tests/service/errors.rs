@@ -9,7 +9,11 @@ use crate::support::case_dir;
 
 fn assert_problem(a: &Answer, status: u16) {
     assert_eq!(a.status, status, "{}", a.body);
-    assert!(a.content_type.starts_with("application/problem+json"), "content type {}", a.content_type);
+    assert!(
+        a.content_type.starts_with("application/problem+json"),
+        "content type {}",
+        a.content_type
+    );
     assert_eq!(a.body["status"], status);
     for key in ["type", "title", "detail"] {
         assert!(a.body[key].is_string(), "problem lacks {key}: {}", a.body);
@@ -19,7 +23,10 @@ fn assert_problem(a: &Answer, status: u16) {
 #[tokio::test]
 async fn malformed_json_is_400() {
     let s = Server::start(&[]);
-    assert_problem(&s.post_json_text("/v1/evaluations", "{\"teacher\": ").await, 400);
+    assert_problem(
+        &s.post_json_text("/v1/evaluations", "{\"teacher\": ").await,
+        400,
+    );
 }
 
 #[tokio::test]
@@ -45,7 +52,9 @@ async fn unknown_ids_and_paths_are_404() {
 #[tokio::test]
 async fn an_upload_over_the_limit_is_413() {
     let s = Server::start(&["--max-upload-bytes", "1000"]);
-    let a = s.upload_model(&case_dir("mlp").join("teacher.onnx"), "big").await;
+    let a = s
+        .upload_model(&case_dir("mlp").join("teacher.onnx"), "big")
+        .await;
     assert_problem(&a, 413);
 }
 
@@ -56,12 +65,24 @@ async fn files_the_engine_cannot_use_are_422_and_are_not_stored() {
         let a = s.upload_model(&case_dir("bad").join(f), f).await;
         assert_problem(&a, 422);
     }
-    let a = s.upload_model(&case_dir("bad").join("external.onnx"), "x").await;
-    assert!(a.body["detail"].as_str().unwrap().contains("external data"), "{}", a.body);
+    let a = s
+        .upload_model(&case_dir("bad").join("external.onnx"), "x")
+        .await;
+    assert!(
+        a.body["detail"].as_str().unwrap().contains("external data"),
+        "{}",
+        a.body
+    );
     for f in ["bad_labels.npz", "negative_labels.npz"] {
         assert_problem(&s.upload_dataset(&case_dir("bad").join(f), f).await, 422);
     }
-    assert_eq!(s.get("/v1/models").await.body["items"].as_array().unwrap().len(), 0);
+    assert_eq!(
+        s.get("/v1/models").await.body["items"]
+            .as_array()
+            .unwrap()
+            .len(),
+        0
+    );
 }
 
 #[tokio::test]
@@ -76,19 +97,58 @@ async fn evaluations_that_cannot_run_are_refused_at_creation_with_the_field() {
     let unlabelled = s.dataset_id(&case_dir("unlabeled").join("data.npz")).await;
     let nobody = uuid::Uuid::now_v7().to_string();
     let cases = [
-        (json!({"teacher": nobody, "students": [student], "dataset": set}), Some("teacher")),
-        (json!({"teacher": teacher, "students": [student, nobody], "dataset": set}), Some("students[1]")),
-        (json!({"teacher": teacher, "students": [student], "dataset": nobody}), Some("dataset")),
-        (json!({"teacher": teacher, "students": [], "dataset": set}), Some("students")),
-        (json!({"teacher": teacher, "students": [student], "dataset": set, "gates": {"min_agreemnt": 0.9}}), Some("gates.min_agreemnt")),
-        (json!({"teacher": teacher, "students": [student], "dataset": set, "batch_size": 0}), Some("batch_size")),
-        (json!({"teacher": teacher, "students": [student], "dataset": set, "latency": {"iterations": 0}}), Some("latency.iterations")),
-        (json!({"teacher": teacher, "students": [student], "dataset": unlabelled, "gates": {"min_top1": 0.5}}), Some("gates.min_top1")),
-        (json!({"teacher": teacher, "students": [student], "dataset": set, "temprature": 2.0}), None),
-        (json!({"teacher": teacher, "students": [student], "dataset": misfit}), None),
-        (json!({"teacher": teacher, "students": [six], "dataset": set}), None),
-        (json!({"teacher": teacher, "students": [student], "dataset": big_labels}), None),
-        (json!({"teacher": teacher, "students": [student], "dataset": set, "output": "nope"}), None),
+        (
+            json!({"teacher": nobody, "students": [student], "dataset": set}),
+            Some("teacher"),
+        ),
+        (
+            json!({"teacher": teacher, "students": [student, nobody], "dataset": set}),
+            Some("students[1]"),
+        ),
+        (
+            json!({"teacher": teacher, "students": [student], "dataset": nobody}),
+            Some("dataset"),
+        ),
+        (
+            json!({"teacher": teacher, "students": [], "dataset": set}),
+            Some("students"),
+        ),
+        (
+            json!({"teacher": teacher, "students": [student], "dataset": set, "gates": {"min_agreemnt": 0.9}}),
+            Some("gates.min_agreemnt"),
+        ),
+        (
+            json!({"teacher": teacher, "students": [student], "dataset": set, "batch_size": 0}),
+            Some("batch_size"),
+        ),
+        (
+            json!({"teacher": teacher, "students": [student], "dataset": set, "latency": {"iterations": 0}}),
+            Some("latency.iterations"),
+        ),
+        (
+            json!({"teacher": teacher, "students": [student], "dataset": unlabelled, "gates": {"min_top1": 0.5}}),
+            Some("gates.min_top1"),
+        ),
+        (
+            json!({"teacher": teacher, "students": [student], "dataset": set, "temprature": 2.0}),
+            None,
+        ),
+        (
+            json!({"teacher": teacher, "students": [student], "dataset": misfit}),
+            None,
+        ),
+        (
+            json!({"teacher": teacher, "students": [six], "dataset": set}),
+            None,
+        ),
+        (
+            json!({"teacher": teacher, "students": [student], "dataset": big_labels}),
+            None,
+        ),
+        (
+            json!({"teacher": teacher, "students": [student], "dataset": set, "output": "nope"}),
+            None,
+        ),
     ];
     for (body, field) in cases {
         let a = s.create_evaluation(&body).await;
@@ -97,7 +157,13 @@ async fn evaluations_that_cannot_run_are_refused_at_creation_with_the_field() {
             assert_eq!(a.body["field"], f, "{body}: {}", a.body);
         }
     }
-    assert_eq!(s.get("/v1/evaluations").await.body["items"].as_array().unwrap().len(), 0);
+    assert_eq!(
+        s.get("/v1/evaluations").await.body["items"]
+            .as_array()
+            .unwrap()
+            .len(),
+        0
+    );
 }
 
 #[tokio::test]
@@ -106,8 +172,10 @@ async fn a_report_asked_for_before_it_exists_is_409() {
     let teacher = s.model_id(&case_dir("mlp").join("teacher.onnx")).await;
     let set = s.dataset_id(&case_dir("mlp").join("data.npz")).await;
     let a = s
-        .create_evaluation(&json!({"teacher": teacher, "students": [teacher], "dataset": set,
-            "latency": {"warmup": 0, "iterations": 100000}}))
+        .create_evaluation(
+            &json!({"teacher": teacher, "students": [teacher], "dataset": set,
+            "latency": {"warmup": 0, "iterations": 100000}}),
+        )
         .await;
     let id = a.body["id"].as_str().unwrap();
     assert_problem(&s.get(&format!("/v1/evaluations/{id}/report")).await, 409);

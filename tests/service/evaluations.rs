@@ -38,7 +38,10 @@ async fn a_submitted_evaluation_runs_and_its_report_matches_the_reference() {
     assert_eq!(a.status, 202, "{}", a.body);
     assert_eq!(a.body["status"], "queued");
     let id = a.body["id"].as_str().unwrap().to_string();
-    assert_eq!(a.location.as_deref(), Some(format!("/v1/evaluations/{id}").as_str()));
+    assert_eq!(
+        a.location.as_deref(),
+        Some(format!("/v1/evaluations/{id}").as_str())
+    );
     // Defaults are filled in (api.md).
     assert_eq!(a.body["request"]["temperature"], 4.0);
     assert_eq!(a.body["request"]["alpha"], 0.5);
@@ -62,7 +65,10 @@ async fn a_submitted_evaluation_runs_and_its_report_matches_the_reference() {
         let got = json!({"fidelity": c["fidelity"], "accuracy": c["accuracy"]});
         assert_matches(&got, &want, ENGINES_F32, stem);
     }
-    assert_eq!(report.body["recommended"], report.body["candidates"][0]["model"]["id"]);
+    assert_eq!(
+        report.body["recommended"],
+        report.body["candidates"][0]["model"]["id"]
+    );
     assert_eq!(report.body["evaluation"], json!(id));
     assert_eq!(report.body["project"], "turbine-acoustics");
 }
@@ -71,19 +77,44 @@ async fn a_submitted_evaluation_runs_and_its_report_matches_the_reference() {
 async fn lists_filter_by_project_teacher_and_status() {
     let s = Server::start(&[]);
     let (teacher, students, set) = upload_case(&s, "binary", &["student_small.onnx"]).await;
-    let body = |project: &str| {
-        json!({"project": project, "teacher": teacher, "students": students, "dataset": set, "latency": quick_latency()})
-    };
-    let a = s.create_evaluation(&body("alpha")).await.body["id"].as_str().unwrap().to_string();
-    let b = s.create_evaluation(&body("beta")).await.body["id"].as_str().unwrap().to_string();
+    let body = |project: &str| json!({"project": project, "teacher": teacher, "students": students, "dataset": set, "latency": quick_latency()});
+    let a = s.create_evaluation(&body("alpha")).await.body["id"]
+        .as_str()
+        .unwrap()
+        .to_string();
+    let b = s.create_evaluation(&body("beta")).await.body["id"]
+        .as_str()
+        .unwrap()
+        .to_string();
     s.wait_finished(&a, LONG).await;
     s.wait_finished(&b, LONG).await;
     let ids = |v: &Value| -> Vec<String> {
-        v["items"].as_array().unwrap().iter().map(|e| e["id"].as_str().unwrap().to_string()).collect()
+        v["items"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|e| e["id"].as_str().unwrap().to_string())
+            .collect()
     };
-    assert_eq!(ids(&s.get("/v1/evaluations").await.body), vec![b.clone(), a.clone()], "newest first");
-    assert_eq!(ids(&s.get("/v1/evaluations?project=alpha").await.body), vec![a.clone()]);
-    assert_eq!(ids(&s.get(&format!("/v1/evaluations?teacher={teacher}&status=succeeded")).await.body).len(), 2);
+    assert_eq!(
+        ids(&s.get("/v1/evaluations").await.body),
+        vec![b.clone(), a.clone()],
+        "newest first"
+    );
+    assert_eq!(
+        ids(&s.get("/v1/evaluations?project=alpha").await.body),
+        vec![a.clone()]
+    );
+    assert_eq!(
+        ids(&s
+            .get(&format!(
+                "/v1/evaluations?teacher={teacher}&status=succeeded"
+            ))
+            .await
+            .body)
+        .len(),
+        2
+    );
     assert!(ids(&s.get("/v1/evaluations?status=running").await.body).is_empty());
 }
 
@@ -107,7 +138,10 @@ async fn canceling_a_running_evaluation_stops_it_and_its_report_stays_unavailabl
     let r = s.get(&format!("/v1/evaluations/{id}/report")).await;
     assert_eq!(r.status, 409);
     let again = s.delete(&format!("/v1/evaluations/{id}")).await;
-    assert_eq!(again.status, 409, "an evaluation already finished cannot be canceled");
+    assert_eq!(
+        again.status, 409,
+        "an evaluation already finished cannot be canceled"
+    );
 }
 
 #[tokio::test]
@@ -127,7 +161,13 @@ async fn a_failing_gate_gives_no_go_with_the_failed_check() {
     let check = &r["candidates"][0]["gates"]["checks"][0];
     assert_eq!(check["gate"], "min_agreement");
     assert_eq!(check["passed"], false);
-    assert!(check["judged"].as_f64().unwrap() < check["estimate"].as_f64().unwrap(), "{check}");
-    assert_eq!(r["settings"]["gates"], json!({"min_agreement": 0.95, "confidence": 0.95}));
+    assert!(
+        check["judged"].as_f64().unwrap() < check["estimate"].as_f64().unwrap(),
+        "{check}"
+    );
+    assert_eq!(
+        r["settings"]["gates"],
+        json!({"min_agreement": 0.95, "confidence": 0.95})
+    );
     assert!(r["recommended"].is_null());
 }

@@ -54,7 +54,12 @@ impl Server {
         let base = line
             .trim()
             .strip_prefix("proctor listening on ")
-            .unwrap_or_else(|| panic!("unexpected first line {line:?}; see {}/server.log", data_dir.display()))
+            .unwrap_or_else(|| {
+                panic!(
+                    "unexpected first line {line:?}; see {}/server.log",
+                    data_dir.display()
+                )
+            })
             .to_string();
         Server {
             child: Some(child),
@@ -83,20 +88,44 @@ impl Server {
 
     async fn answer(res: reqwest::Response) -> Answer {
         let status = res.status().as_u16();
-        let header = |name: &str| res.headers().get(name).and_then(|v| v.to_str().ok()).map(str::to_string);
+        let header = |name: &str| {
+            res.headers()
+                .get(name)
+                .and_then(|v| v.to_str().ok())
+                .map(str::to_string)
+        };
         let content_type = header("content-type").unwrap_or_default();
         let location = header("location");
         let text = res.text().await.unwrap();
         let body = serde_json::from_str(&text).unwrap_or(Value::Null);
-        Answer { status, body, content_type, location }
+        Answer {
+            status,
+            body,
+            content_type,
+            location,
+        }
     }
 
     pub async fn get(&self, path: &str) -> Answer {
-        Self::answer(self.client.get(format!("{}{path}", self.base)).send().await.unwrap()).await
+        Self::answer(
+            self.client
+                .get(format!("{}{path}", self.base))
+                .send()
+                .await
+                .unwrap(),
+        )
+        .await
     }
 
     pub async fn delete(&self, path: &str) -> Answer {
-        Self::answer(self.client.delete(format!("{}{path}", self.base)).send().await.unwrap()).await
+        Self::answer(
+            self.client
+                .delete(format!("{}{path}", self.base))
+                .send()
+                .await
+                .unwrap(),
+        )
+        .await
     }
 
     pub async fn post_bytes(&self, path: &str, bytes: Vec<u8>) -> Answer {
@@ -124,29 +153,50 @@ impl Server {
     }
 
     pub async fn upload_model(&self, file: &Path, name: &str) -> Answer {
-        self.post_bytes(&format!("/v1/models?name={name}"), std::fs::read(file).unwrap()).await
+        self.post_bytes(
+            &format!("/v1/models?name={name}"),
+            std::fs::read(file).unwrap(),
+        )
+        .await
     }
 
     pub async fn upload_dataset(&self, file: &Path, name: &str) -> Answer {
-        self.post_bytes(&format!("/v1/datasets?name={name}"), std::fs::read(file).unwrap()).await
+        self.post_bytes(
+            &format!("/v1/datasets?name={name}"),
+            std::fs::read(file).unwrap(),
+        )
+        .await
     }
 
     /// Uploads and returns the id, asserting success.
     pub async fn model_id(&self, file: &Path) -> String {
         let name = file.file_stem().unwrap().to_string_lossy().to_string();
         let a = self.upload_model(file, &name).await;
-        assert!(a.status == 201 || a.status == 200, "upload of {}: {} {}", file.display(), a.status, a.body);
+        assert!(
+            a.status == 201 || a.status == 200,
+            "upload of {}: {} {}",
+            file.display(),
+            a.status,
+            a.body
+        );
         a.body["id"].as_str().unwrap().to_string()
     }
 
     pub async fn dataset_id(&self, file: &Path) -> String {
         let a = self.upload_dataset(file, "set").await;
-        assert!(a.status == 201 || a.status == 200, "upload of {}: {} {}", file.display(), a.status, a.body);
+        assert!(
+            a.status == 201 || a.status == 200,
+            "upload of {}: {} {}",
+            file.display(),
+            a.status,
+            a.body
+        );
         a.body["id"].as_str().unwrap().to_string()
     }
 
     pub async fn create_evaluation(&self, body: &Value) -> Answer {
-        self.post_json_text("/v1/evaluations", &body.to_string()).await
+        self.post_json_text("/v1/evaluations", &body.to_string())
+            .await
     }
 
     pub async fn evaluation(&self, id: &str) -> Value {
@@ -158,10 +208,17 @@ impl Server {
         let start = Instant::now();
         loop {
             let e = self.evaluation(id).await;
-            if matches!(e["status"].as_str(), Some("succeeded" | "failed" | "canceled")) {
+            if matches!(
+                e["status"].as_str(),
+                Some("succeeded" | "failed" | "canceled")
+            ) {
                 return e;
             }
-            assert!(start.elapsed() < limit, "evaluation {id} still {} after {limit:?}", e["status"]);
+            assert!(
+                start.elapsed() < limit,
+                "evaluation {id} still {} after {limit:?}",
+                e["status"]
+            );
             tokio::time::sleep(Duration::from_millis(100)).await;
         }
     }
@@ -174,7 +231,11 @@ impl Server {
             if e["status"] == status {
                 return e;
             }
-            assert!(start.elapsed() < limit, "evaluation {id} is {} and never {status}", e["status"]);
+            assert!(
+                start.elapsed() < limit,
+                "evaluation {id} is {} and never {status}",
+                e["status"]
+            );
             tokio::time::sleep(Duration::from_millis(50)).await;
         }
     }

@@ -15,7 +15,9 @@ const SMALL_CAP: &[&str] = &["--eval-memory", "512"];
 #[tokio::test]
 async fn a_model_that_asks_for_gigabytes_while_loading_is_refused_and_the_service_stays_up() {
     let s = Server::start(SMALL_CAP);
-    let a = s.upload_model(&case_dir("bad").join("memory_bomb.onnx"), "bomb").await;
+    let a = s
+        .upload_model(&case_dir("bad").join("memory_bomb.onnx"), "bomb")
+        .await;
     assert_eq!(a.status, 422, "{}", a.body);
     assert_eq!(s.get("/healthz").await.status, 200);
     assert_eq!(s.get("/readyz").await.status, 200);
@@ -39,8 +41,10 @@ async fn a_model_that_exhausts_memory_fails_its_own_evaluation_only() {
     assert_eq!(s.get("/healthz").await.status, 200);
     // The next evaluation runs normally.
     let ok = s
-        .create_evaluation(&json!({"teacher": teacher, "students": [teacher], "dataset": set,
-            "latency": {"warmup": 0, "iterations": 3}}))
+        .create_evaluation(
+            &json!({"teacher": teacher, "students": [teacher], "dataset": set,
+            "latency": {"warmup": 0, "iterations": 3}}),
+        )
         .await;
     let done = s.wait_finished(ok.body["id"].as_str().unwrap(), LONG).await;
     assert_eq!(done["status"], "succeeded", "{done}");
@@ -52,12 +56,17 @@ async fn a_model_that_outputs_nan_fails_with_the_model_and_sample_named() {
     let teacher = s.model_id(&case_dir("mlp").join("teacher.onnx")).await;
     let nan = s.model_id(&case_dir("bad").join("nan_output.onnx")).await;
     let set = s.dataset_id(&case_dir("mlp").join("data.npz")).await;
-    let a = s.create_evaluation(&json!({"teacher": teacher, "students": [nan], "dataset": set})).await;
+    let a = s
+        .create_evaluation(&json!({"teacher": teacher, "students": [nan], "dataset": set}))
+        .await;
     let done = s.wait_finished(a.body["id"].as_str().unwrap(), LONG).await;
     assert_eq!(done["status"], "failed");
     assert_eq!(done["error"]["status"], 422);
     let detail = done["error"]["detail"].as_str().unwrap();
-    assert!(detail.contains("nan_output") && detail.contains("NaN at sample"), "{detail}");
+    assert!(
+        detail.contains("nan_output") && detail.contains("NaN at sample"),
+        "{detail}"
+    );
 }
 
 #[tokio::test]
@@ -71,19 +80,36 @@ async fn after_kill_9_mid_evaluation_a_restart_completes_it_with_the_same_figure
         json!({"teacher": teacher, "students": [student], "dataset": set,
                "latency": {"warmup": 0, "iterations": iterations}})
     };
-    let reference = s.create_evaluation(&body(5)).await.body["id"].as_str().unwrap().to_string();
+    let reference = s.create_evaluation(&body(5)).await.body["id"]
+        .as_str()
+        .unwrap()
+        .to_string();
     s.wait_finished(&reference, LONG).await;
-    let id = s.create_evaluation(&body(3000)).await.body["id"].as_str().unwrap().to_string();
+    let id = s.create_evaluation(&body(20000)).await.body["id"]
+        .as_str()
+        .unwrap()
+        .to_string();
     s.wait_status(&id, "running", LONG).await;
     s.kill9();
 
     let s = Server::start_in(dir.path(), &[]);
     let done = s.wait_finished(&id, LONG).await;
+    let log = std::fs::read_to_string(dir.path().join("server.log")).unwrap();
+    assert!(
+        log.contains("requeued=1"),
+        "the restart did not find the interrupted evaluation:\n{log}"
+    );
     assert_eq!(done["status"], "succeeded", "{done}");
-    let a = s.get(&format!("/v1/evaluations/{reference}/report")).await.body;
+    let a = s
+        .get(&format!("/v1/evaluations/{reference}/report"))
+        .await
+        .body;
     let b = s.get(&format!("/v1/evaluations/{id}/report")).await.body;
     for section in ["fidelity", "accuracy"] {
-        assert_eq!(a["candidates"][0][section], b["candidates"][0][section], "{section}");
+        assert_eq!(
+            a["candidates"][0][section], b["candidates"][0][section],
+            "{section}"
+        );
     }
     assert_eq!(a["teacher"]["accuracy"], b["teacher"]["accuracy"]);
 }
@@ -92,7 +118,9 @@ async fn after_kill_9_mid_evaluation_a_restart_completes_it_with_the_same_figure
 async fn two_evaluations_queued_at_once_both_finish() {
     let s = Server::start(&["--workers", "2"]);
     let teacher = s.model_id(&case_dir("binary").join("teacher.onnx")).await;
-    let student = s.model_id(&case_dir("binary").join("student_small.onnx")).await;
+    let student = s
+        .model_id(&case_dir("binary").join("student_small.onnx"))
+        .await;
     let set = s.dataset_id(&case_dir("binary").join("data.npz")).await;
     let body = json!({"teacher": teacher, "students": [student], "dataset": set,
                       "latency": {"warmup": 1, "iterations": 20}});
@@ -111,14 +139,19 @@ async fn sigterm_puts_a_running_evaluation_back_in_the_queue() {
     let teacher = s.model_id(&case_dir("mlp").join("teacher.onnx")).await;
     let set = s.dataset_id(&case_dir("mlp").join("data.npz")).await;
     let a = s
-        .create_evaluation(&json!({"teacher": teacher, "students": [teacher], "dataset": set,
-            "latency": {"warmup": 0, "iterations": 100000}}))
+        .create_evaluation(
+            &json!({"teacher": teacher, "students": [teacher], "dataset": set,
+            "latency": {"warmup": 0, "iterations": 100000}}),
+        )
         .await;
     let id = a.body["id"].as_str().unwrap().to_string();
     s.wait_status(&id, "running", LONG).await;
     assert!(s.terminate().success(), "a clean exit on SIGTERM");
     let s = Server::start_in(dir.path(), &["--workers", "1"]);
     let e = s.evaluation(&id).await;
-    assert!(matches!(e["status"].as_str(), Some("queued" | "running")), "{e}");
+    assert!(
+        matches!(e["status"].as_str(), Some("queued" | "running")),
+        "{e}"
+    );
     s.delete(&format!("/v1/evaluations/{id}")).await;
 }

@@ -6,7 +6,9 @@ use crate::support::{case_dir, expected};
 #[tokio::test]
 async fn an_uploaded_model_reports_what_the_onnx_package_reads() {
     let s = Server::start(&[]);
-    let a = s.upload_model(&case_dir("text").join("teacher.onnx"), "text-teacher").await;
+    let a = s
+        .upload_model(&case_dir("text").join("teacher.onnx"), "text-teacher")
+        .await;
     assert_eq!(a.status, 201, "{}", a.body);
     let want = &expected("text")["models"]["teacher"];
     assert_eq!(a.body["name"], "text-teacher");
@@ -17,7 +19,10 @@ async fn an_uploaded_model_reports_what_the_onnx_package_reads() {
     assert_eq!(a.body["inputs"], want["inputs"]);
     assert_eq!(a.body["outputs"], want["outputs"]);
     let id = a.body["id"].as_str().unwrap();
-    assert_eq!(a.location.as_deref(), Some(format!("/v1/models/{id}").as_str()));
+    assert_eq!(
+        a.location.as_deref(),
+        Some(format!("/v1/models/{id}").as_str())
+    );
     assert_eq!(s.get(&format!("/v1/models/{id}")).await.body, a.body);
 }
 
@@ -38,7 +43,9 @@ async fn uploading_the_same_file_twice_answers_200_with_the_first_record() {
 #[tokio::test]
 async fn a_dataset_upload_describes_its_arrays_and_labels() {
     let s = Server::start(&[]);
-    let a = s.upload_dataset(&case_dir("text").join("data.npz"), "tickets").await;
+    let a = s
+        .upload_dataset(&case_dir("text").join("data.npz"), "tickets")
+        .await;
     assert_eq!(a.status, 201, "{}", a.body);
     let exp = expected("text");
     assert_eq!(a.body["samples"], exp["samples"]);
@@ -48,8 +55,13 @@ async fn a_dataset_upload_describes_its_arrays_and_labels() {
     let mut want = exp["data_arrays"].as_array().unwrap().clone();
     want.sort_by_key(|v| v["name"].as_str().unwrap().to_string());
     assert_eq!(arrays, want);
-    let again = s.upload_dataset(&case_dir("text").join("data.npz"), "other").await;
-    assert_eq!((again.status, again.body["id"].clone()), (200, a.body["id"].clone()));
+    let again = s
+        .upload_dataset(&case_dir("text").join("data.npz"), "other")
+        .await;
+    assert_eq!(
+        (again.status, again.body["id"].clone()),
+        (200, a.body["id"].clone())
+    );
 }
 
 #[tokio::test]
@@ -60,11 +72,21 @@ async fn model_lists_page_newest_first_with_a_cursor() {
         ids.push(s.model_id(&case_dir("mlp").join(f)).await);
     }
     let first = s.get("/v1/models?limit=2").await;
-    let items: Vec<&str> = first.body["items"].as_array().unwrap().iter().map(|m| m["id"].as_str().unwrap()).collect();
+    let items: Vec<&str> = first.body["items"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|m| m["id"].as_str().unwrap())
+        .collect();
     assert_eq!(items, vec![ids[2].as_str(), ids[1].as_str()]);
     let cursor = first.body["next_cursor"].as_str().unwrap();
     let second = s.get(&format!("/v1/models?limit=2&cursor={cursor}")).await;
-    let rest: Vec<&str> = second.body["items"].as_array().unwrap().iter().map(|m| m["id"].as_str().unwrap()).collect();
+    let rest: Vec<&str> = second.body["items"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|m| m["id"].as_str().unwrap())
+        .collect();
     assert_eq!(rest, vec![ids[0].as_str()]);
     assert!(second.body["next_cursor"].is_null());
 }

@@ -8,9 +8,15 @@ use std::path::{Path, PathBuf};
 use serde_json::Value;
 
 /// Figures computed from the same f64 logits agree to this (metrics.md).
-pub const SAME_LOGITS: Tolerance = Tolerance { rel: 1e-9, abs: 1e-12 };
+pub const SAME_LOGITS: Tolerance = Tolerance {
+    rel: 1e-9,
+    abs: 1e-12,
+};
 /// tract and onnxruntime both compute in float32 and differ by a few ulps.
-pub const ENGINES_F32: Tolerance = Tolerance { rel: 1e-4, abs: 1e-5 };
+pub const ENGINES_F32: Tolerance = Tolerance {
+    rel: 1e-4,
+    abs: 1e-5,
+};
 
 #[derive(Debug, Clone, Copy)]
 pub struct Tolerance {
@@ -38,8 +44,17 @@ pub fn expected(case: &str) -> Value {
 }
 
 /// The labelled cases with a teacher and students.
-pub const CASES: [&str; 9] =
-    ["mlp", "cnn", "text", "softmax_head", "ties", "binary", "wide", "fixed_batch", "unlabeled"];
+pub const CASES: [&str; 9] = [
+    "mlp",
+    "cnn",
+    "text",
+    "softmax_head",
+    "ties",
+    "binary",
+    "wide",
+    "fixed_batch",
+    "unlabeled",
+];
 
 /// Compares every field of `got` with `want`: numbers within `tol`, all else
 /// exactly. Every field of `got` must be present in `want`, so that no figure
@@ -48,17 +63,28 @@ pub fn assert_matches(got: &Value, want: &Value, tol: Tolerance, path: &str) {
     match (got, want) {
         (Value::Number(g), Value::Number(w)) => {
             let (g, w) = (g.as_f64().unwrap(), w.as_f64().unwrap());
-            assert!(tol.accepts(g, w), "{path}: got {g:e}, reference {w:e} (tolerance {tol:?})");
+            assert!(
+                tol.accepts(g, w),
+                "{path}: got {g:e}, reference {w:e} (tolerance {tol:?})"
+            );
         }
         (Value::Array(g), Value::Array(w)) => {
-            assert_eq!(g.len(), w.len(), "{path}: got {} elements, reference {}", g.len(), w.len());
+            assert_eq!(
+                g.len(),
+                w.len(),
+                "{path}: got {} elements, reference {}",
+                g.len(),
+                w.len()
+            );
             for (i, (g, w)) in g.iter().zip(w).enumerate() {
                 assert_matches(g, w, tol, &format!("{path}[{i}]"));
             }
         }
         (Value::Object(g), Value::Object(w)) => {
             for (k, gv) in g {
-                let wv = w.get(k).unwrap_or_else(|| panic!("{path}.{k} has no reference value"));
+                let wv = w
+                    .get(k)
+                    .unwrap_or_else(|| panic!("{path}.{k} has no reference value"));
                 assert_matches(gv, wv, tol, &format!("{path}.{k}"));
             }
         }

@@ -128,8 +128,7 @@ pub fn student_accuracy(inp: &StudentInputs<'_>) -> StudentAccuracy {
         kd_loss: inp.alpha * t2 * inp.soft_cross_entropy + (1.0 - inp.alpha) * own.nll,
         delta: own.top1 - inp.teacher_accuracy.top1,
         delta_ci: paired_wald(gained, lost, n, Z95),
-        retention: (inp.teacher_accuracy.top1 > 0.0)
-            .then(|| own.top1 / inp.teacher_accuracy.top1),
+        retention: (inp.teacher_accuracy.top1 > 0.0).then(|| own.top1 / inp.teacher_accuracy.top1),
         mcnemar_p: mcnemar_exact(gained, lost),
         negative_flip_rate: lost as f64 / n as f64,
         own,

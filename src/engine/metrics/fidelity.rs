@@ -82,11 +82,19 @@ fn centred_mse_row(zs: &[f64], zt: &[f64]) -> f64 {
     let c = zs.len() as f64;
     let ms = zs.iter().sum::<f64>() / c;
     let mt = zt.iter().sum::<f64>() / c;
-    zs.iter().zip(zt).map(|(s, t)| ((s - ms) - (t - mt)).powi(2)).sum::<f64>() / c
+    zs.iter()
+        .zip(zt)
+        .map(|(s, t)| ((s - ms) - (t - mt)).powi(2))
+        .sum::<f64>()
+        / c
 }
 
 pub fn fidelity(teacher: &Logits, student: &Logits, temperature: f64) -> Fidelity {
-    assert_eq!((teacher.n, teacher.c), (student.n, student.c), "logit shapes differ");
+    assert_eq!(
+        (teacher.n, teacher.c),
+        (student.n, student.c),
+        "logit shapes differ"
+    );
     let (n, k) = (teacher.n, top_k(teacher.c));
     let mut s = Sums::default();
     let mut per_class: BTreeMap<usize, (u64, u64)> = BTreeMap::new();
@@ -116,7 +124,11 @@ pub fn fidelity(teacher: &Logits, student: &Logits, temperature: f64) -> Fidelit
     let nf = n as f64;
     let mut disagreements: Vec<Disagreement> = pairs
         .into_iter()
-        .map(|((t, st), count)| Disagreement { teacher_class: t, student_class: st, count })
+        .map(|((t, st), count)| Disagreement {
+            teacher_class: t,
+            student_class: st,
+            count,
+        })
         .collect();
     disagreements.sort_by(|a, b| {
         b.count
@@ -180,11 +192,20 @@ mod tests {
 
     #[test]
     fn disagreements_are_sorted_by_count_then_classes() {
-        let t = logits(3, &[1.0, 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0]);
-        let s = logits(3, &[0.0, 1.0, 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0, 1.0, 0.0, 0.0]);
+        let t = logits(
+            3,
+            &[1.0, 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0],
+        );
+        let s = logits(
+            3,
+            &[0.0, 1.0, 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0, 1.0, 0.0, 0.0],
+        );
         let f = fidelity(&t, &s, 1.0);
-        let got: Vec<(usize, usize, u64)> =
-            f.disagreements.iter().map(|d| (d.teacher_class, d.student_class, d.count)).collect();
+        let got: Vec<(usize, usize, u64)> = f
+            .disagreements
+            .iter()
+            .map(|d| (d.teacher_class, d.student_class, d.count))
+            .collect();
         assert_eq!(got, vec![(0, 1, 2), (1, 2, 1), (2, 0, 1)]);
         assert_eq!(f.class_agreement.len(), 3);
         assert_eq!(f.agreement, 0.0);
