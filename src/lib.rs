@@ -6,6 +6,8 @@
 //! process; `engine` runs the models and computes the figures; `report`
 //! is the JSON shape that goes back out.
 
+/// `proctor submit` and `proctor demo`: the client side.
+pub mod cli;
 /// Command-line settings of `proctor serve`.
 pub mod config;
 /// Runs models with tract and computes every figure of a report.

@@ -18,22 +18,42 @@ struct Cli {
 enum Command {
     /// Run the HTTP service and its evaluation workers.
     Serve(proctor::config::ServeArgs),
+    /// Submit a teacher, students and an evaluation set; exit with the verdict.
+    Submit(proctor::cli::submit::SubmitArgs),
+    /// Run the bundled turbine-acoustics demo on a local service.
+    Demo(proctor::cli::demo::DemoArgs),
     /// Run one engine task read from stdin (started by the service).
     #[command(hide = true, name = "child")]
     Child,
 }
 
 fn main() -> anyhow::Result<()> {
+    let cli = Cli::parse();
+    let default_level = match cli.command {
+        Command::Serve(_) => "info",
+        _ => "warn",
+    };
     tracing_subscriber::fmt()
         .with_env_filter(
-            EnvFilter::try_from_default_env().unwrap_or_else(|_| EnvFilter::new("info")),
+            EnvFilter::try_from_default_env().unwrap_or_else(|_| EnvFilter::new(default_level)),
         )
         .with_writer(std::io::stderr)
         .init();
-    match Cli::parse().command {
-        Command::Serve(args) => {
-            let runtime = tokio::runtime::Runtime::new()?;
-            runtime.block_on(proctor::server::serve(args))
+    let runtime = || tokio::runtime::Runtime::new();
+    match cli.command {
+        Command::Serve(args) => runtime()?.block_on(proctor::server::serve(args)),
+        Command::Submit(args) => {
+            let code = match runtime()?.block_on(proctor::cli::submit::run(&args)) {
+                Ok(code) => code,
+                Err(e) => {
+                    eprintln!("proctor submit: {}", e.message);
+                    e.code
+                }
+            };
+            std::process::exit(code)
+        }
+        Command::Demo(args) => {
+            std::process::exit(runtime()?.block_on(proctor::cli::demo::run(&args))?)
         }
         Command::Child => std::process::exit(proctor::queue::task::run_from_stdin()),
     }

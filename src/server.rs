@@ -1,6 +1,10 @@
 //! Starting and stopping the service: store, queue, HTTP, signals.
 
+use std::net::SocketAddr;
+
 use anyhow::Context;
+use tokio::task::JoinHandle;
+use tokio_util::sync::CancellationToken;
 
 use crate::config::ServeArgs;
 use crate::queue::child::Limits;
@@ -8,7 +12,14 @@ use crate::queue::{Queue, QueueConfig};
 use crate::service::{App, ServiceConfig};
 use crate::store::Store;
 
-pub async fn serve(args: ServeArgs) -> anyhow::Result<()> {
+/// A started service: its address, and a way to stop it cleanly.
+pub struct Running {
+    pub addr: SocketAddr,
+    stop: CancellationToken,
+    task: JoinHandle<anyhow::Result<()>>,
+}
+
+pub async fn start(args: &ServeArgs) -> anyhow::Result<Running> {
     std::fs::create_dir_all(&args.data_dir)
         .with_context(|| format!("creating the data dir {}", args.data_dir.display()))?;
     let store = Store::open(&args.database_url(), &args.data_dir)
@@ -37,17 +48,41 @@ pub async fn serve(args: ServeArgs) -> anyhow::Result<()> {
         .await
         .with_context(|| format!("listening on {}", args.listen))?;
     let addr = listener.local_addr()?;
-    // Scripts and tests read this line to learn the port when asked for port 0.
-    println!("proctor listening on http://{addr}");
     tracing::info!(%addr, data_dir = %args.data_dir.display(), "serving");
-    axum::serve(listener, crate::http::router(app))
-        .with_graceful_shutdown(shutdown_signal())
-        .await
-        .context("serving HTTP")?;
-    tracing::info!("stopping: running evaluations go back to the queue");
-    queue.shutdown().await;
-    store.close().await;
-    Ok(())
+    let stop = CancellationToken::new();
+    let stopped = stop.clone();
+    let task = tokio::spawn(async move {
+        axum::serve(listener, crate::http::router(app))
+            .with_graceful_shutdown(stopped.cancelled_owned())
+            .await
+            .context("serving HTTP")?;
+        tracing::info!("stopping: running evaluations go back to the queue");
+        queue.shutdown().await;
+        store.close().await;
+        Ok(())
+    });
+    Ok(Running { addr, stop, task })
+}
+
+impl Running {
+    pub async fn stop(self) -> anyhow::Result<()> {
+        self.stop.cancel();
+        self.task.await.context("the server task")?
+    }
+
+    /// Serves until SIGTERM or Ctrl-C, then stops cleanly.
+    pub async fn until_signal(self) -> anyhow::Result<()> {
+        shutdown_signal().await;
+        self.stop().await
+    }
+}
+
+/// `proctor serve`.
+pub async fn serve(args: ServeArgs) -> anyhow::Result<()> {
+    let running = start(&args).await?;
+    // Scripts and tests read this line to learn the port when asked for port 0.
+    println!("proctor listening on http://{}", running.addr);
+    running.until_signal().await
 }
 
 async fn shutdown_signal() {

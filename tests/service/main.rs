@@ -6,6 +6,7 @@ mod support;
 
 mod errors;
 mod evaluations;
+#[path = "../support/server.rs"]
 mod harness;
 mod openapi;
 mod resilience;

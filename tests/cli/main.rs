@@ -1,0 +1,240 @@
+#![allow(unreachable_pub)]
+//! `proctor submit` and `proctor demo` against a real server.
+
+#[path = "../support/mod.rs"]
+mod support;
+
+#[path = "../support/server.rs"]
+#[allow(dead_code)]
+mod harness;
+
+use std::path::Path;
+use std::process::{Command, Output};
+
+use harness::Server;
+use support::case_dir;
+
+fn proctor(args: &[&str]) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_proctor"))
+        .args(args)
+        .output()
+        .unwrap()
+}
+
+fn text(b: &[u8]) -> String {
+    String::from_utf8_lossy(b).into_owned()
+}
+
+fn file(case: &str, name: &str) -> String {
+    case_dir(case).join(name).to_string_lossy().into_owned()
+}
+
+/// `proctor submit` for the mlp case with extra arguments.
+fn submit(server: &Server, extra: &[&str]) -> Output {
+    let (t, s, d) = (
+        file("mlp", "teacher.onnx"),
+        file("mlp", "student_wide.onnx"),
+        file("mlp", "data.npz"),
+    );
+    let mut args = vec![
+        "submit",
+        "--server",
+        &server.base,
+        "--teacher",
+        &t,
+        "--student",
+        &s,
+        "--data",
+        &d,
+    ];
+    args.extend_from_slice(extra);
+    proctor(&args)
+}
+
+#[tokio::test]
+async fn a_candidate_that_passes_exits_0_with_the_teacher_as_the_reference_row() {
+    let s = Server::start(&[]);
+    let out = submit(&s, &["--gate", "min_agreement=0.5"]);
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    let table = text(&out.stdout);
+    let lines: Vec<&str> = table.lines().collect();
+    assert!(
+        lines[0].contains("agreement") && lines[0].contains("p90 ms"),
+        "{table}"
+    );
+    assert!(lines[1].contains("teacher (teacher)"), "{table}");
+    assert!(
+        lines[2].contains("student_wide") && lines[2].contains("pass"),
+        "{table}"
+    );
+    assert!(table.contains("verdict: GO"), "{table}");
+}
+
+#[tokio::test]
+async fn a_failed_gate_exits_1_and_the_junit_file_has_one_testcase_per_gate() {
+    let s = Server::start(&[]);
+    let dir = tempfile::tempdir().unwrap();
+    let junit = dir.path().join("gates.xml");
+    let summary = dir.path().join("summary.md");
+    let out = submit(
+        &s,
+        &[
+            "--gate",
+            "min_agreement=0.99",
+            "--gate",
+            "max_size_ratio=1",
+            "--junit",
+            junit.to_str().unwrap(),
+            "--summary",
+            summary.to_str().unwrap(),
+        ],
+    );
+    assert_eq!(out.status.code(), Some(1), "{}", text(&out.stderr));
+    let xml = std::fs::read_to_string(&junit).unwrap();
+    let doc = roxmltree::Document::parse(&xml).expect("JUnit XML parses");
+    let suites: Vec<_> = doc
+        .descendants()
+        .filter(|n| n.has_tag_name("testsuite"))
+        .collect();
+    assert_eq!(suites.len(), 1, "one testsuite per candidate");
+    let cases: Vec<_> = suites[0]
+        .children()
+        .filter(|n| n.has_tag_name("testcase"))
+        .collect();
+    assert_eq!(cases.len(), 2, "one testcase per gate");
+    let failed: Vec<_> = cases
+        .iter()
+        .filter(|c| c.children().any(|f| f.has_tag_name("failure")))
+        .collect();
+    assert_eq!(failed.len(), 1);
+    assert_eq!(failed[0].attribute("name"), Some("min_agreement"));
+    let failure = failed[0]
+        .children()
+        .find(|f| f.has_tag_name("failure"))
+        .unwrap();
+    let body = failure.text().unwrap();
+    assert!(
+        body.contains("threshold=0.99") && body.contains("judged="),
+        "{body}"
+    );
+    assert!(std::fs::read_to_string(&summary).unwrap().contains("NO-GO"));
+}
+
+#[tokio::test]
+async fn the_summary_names_the_recommended_candidate() {
+    let s = Server::start(&[]);
+    let dir = tempfile::tempdir().unwrap();
+    let summary = dir.path().join("summary.md");
+    let json = dir.path().join("report.json");
+    let out = submit(
+        &s,
+        &[
+            "--summary",
+            summary.to_str().unwrap(),
+            "--json",
+            json.to_str().unwrap(),
+        ],
+    );
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    let md = std::fs::read_to_string(&summary).unwrap();
+    let report: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
+    let id = report["recommended"].as_str().unwrap();
+    assert!(
+        md.contains(&format!("recommended student_wide ({id})")),
+        "{md}"
+    );
+}
+
+#[tokio::test]
+async fn a_teacher_already_on_the_server_is_not_uploaded_again() {
+    let s = Server::start(&[]);
+    assert_eq!(submit(&s, &[]).status.code(), Some(0));
+    let second = submit(&s, &["--student", &file("mlp", "student_narrow.onnx")]);
+    assert_eq!(second.status.code(), Some(0), "{}", text(&second.stderr));
+    let log = text(&second.stderr);
+    assert!(
+        log.contains(&format!("{}: already stored", file("mlp", "teacher.onnx"))),
+        "{log}"
+    );
+    let models = s.get("/v1/models").await.body;
+    assert_eq!(
+        models["items"].as_array().unwrap().len(),
+        3,
+        "teacher, wide, narrow: each stored once"
+    );
+}
+
+#[tokio::test]
+async fn input_errors_exit_2_and_server_errors_exit_3() {
+    let s = Server::start(&[]);
+    let missing = proctor(&[
+        "submit",
+        "--server",
+        &s.base,
+        "--teacher",
+        "/nonexistent.onnx",
+        "--student",
+        "x",
+        "--data",
+        "y",
+    ]);
+    assert_eq!(missing.status.code(), Some(2), "{}", text(&missing.stderr));
+    let unknown_gate = submit(&s, &["--gate", "min_agreemnt=0.9"]);
+    assert_eq!(
+        unknown_gate.status.code(),
+        Some(2),
+        "{}",
+        text(&unknown_gate.stderr)
+    );
+    assert!(text(&unknown_gate.stderr).contains("min_agreemnt"));
+    let usage = proctor(&["submit", "--teacher", "t"]);
+    assert_eq!(usage.status.code(), Some(2));
+    let nobody = Server::start(&[]);
+    let base = nobody.base.clone();
+    drop(nobody);
+    let (t, st, d) = (
+        file("mlp", "teacher.onnx"),
+        file("mlp", "student_wide.onnx"),
+        file("mlp", "data.npz"),
+    );
+    let down = proctor(&[
+        "submit",
+        "--server",
+        &base,
+        "--teacher",
+        &t,
+        "--student",
+        &st,
+        "--data",
+        &d,
+    ]);
+    assert_eq!(down.status.code(), Some(3), "{}", text(&down.stderr));
+}
+
+#[test]
+fn the_demo_ranks_the_distilled_student_above_the_hard_label_one() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = proctor(&["demo", "--exit", "--data-dir", dir.path().to_str().unwrap()]);
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    let table = text(&out.stdout);
+    let agreement = |name: &str| -> f64 {
+        let line = table
+            .lines()
+            .find(|l| l.contains(name))
+            .unwrap_or_else(|| panic!("no row {name}:\n{table}"));
+        // rank, model, an optional Pareto star, then agreement.
+        line.split_whitespace()
+            .skip(2)
+            .find(|t| *t != "*")
+            .unwrap()
+            .parse()
+            .unwrap()
+    };
+    assert!(
+        agreement("student_distilled_64") > agreement("student_hard_64"),
+        "{table}"
+    );
+    assert!(table.contains("dashboard: http://127.0.0.1:"), "{table}");
+    assert!(Path::new(dir.path()).join("proctor.db").exists());
+}
