@@ -19,7 +19,7 @@ enum Command {
     /// Run the HTTP service and its evaluation workers.
     Serve(proctor::config::ServeArgs),
     /// Submit a teacher, students and an evaluation set; exit with the verdict.
-    Submit(proctor::cli::submit::SubmitArgs),
+    Submit(Box<proctor::cli::submit::SubmitArgs>),
     /// Run the bundled turbine-acoustics demo on a local service.
     Demo(proctor::cli::demo::DemoArgs),
     /// Run one engine task read from stdin (started by the service).
