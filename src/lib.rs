@@ -28,3 +28,5 @@ pub mod server;
 pub mod service;
 /// All SQL and stored files.
 pub mod store;
+/// The dashboard: server-rendered pages under `/`.
+pub mod web;

@@ -48,7 +48,7 @@ pub(super) async fn cancel(
 }
 
 /// Reads the list filters; `verdict` and `tag=key:value` serve the dashboard.
-pub(super) fn list_query(q: &QueryMap) -> Result<ListQuery, AppError> {
+pub(crate) fn list_query(q: &QueryMap) -> Result<ListQuery, AppError> {
     let status = q
         .text("status")
         .map(|s| {

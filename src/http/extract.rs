@@ -49,7 +49,7 @@ impl<S: Send + Sync, T: DeserializeOwned> FromRequest<S> for JsonBody<T> {
 }
 
 /// Query parameters, read by name with typed errors.
-pub(super) struct QueryMap(pub(super) HashMap<String, String>);
+pub(crate) struct QueryMap(pub(crate) HashMap<String, String>);
 
 impl<S: Send + Sync> FromRequestParts<S> for QueryMap {
     type Rejection = AppError;
@@ -63,11 +63,11 @@ impl<S: Send + Sync> FromRequestParts<S> for QueryMap {
 }
 
 impl QueryMap {
-    pub(super) fn text(&self, key: &str) -> Option<String> {
+    pub(crate) fn text(&self, key: &str) -> Option<String> {
         self.0.get(key).filter(|v| !v.is_empty()).cloned()
     }
 
-    pub(super) fn uuid(&self, key: &str) -> Result<Option<Uuid>, AppError> {
+    pub(crate) fn uuid(&self, key: &str) -> Result<Option<Uuid>, AppError> {
         self.text(key)
             .map(|v| {
                 Uuid::parse_str(&v)
@@ -76,7 +76,7 @@ impl QueryMap {
             .transpose()
     }
 
-    pub(super) fn limit(&self) -> Result<u32, AppError> {
+    pub(crate) fn limit(&self) -> Result<u32, AppError> {
         match self.text("limit") {
             None => Ok(DEFAULT_PAGE),
             Some(v) => v
@@ -107,6 +107,6 @@ impl QueryMap {
 }
 
 /// An id in a path; one that is not a UUID names nothing, so it is a 404.
-pub(super) fn path_id(raw: &str, what: &str) -> Result<Uuid, AppError> {
+pub(crate) fn path_id(raw: &str, what: &str) -> Result<Uuid, AppError> {
     Uuid::parse_str(raw).map_err(|_| AppError::NotFound(format!("no {what} has id {raw}")))
 }

@@ -3,7 +3,8 @@
 
 mod catalog;
 mod evaluations;
-mod extract;
+pub(crate) use evaluations::list_query;
+pub(crate) mod extract;
 mod health;
 pub mod problem;
 
@@ -88,6 +89,15 @@ fn table() -> Vec<(&'static str, &'static str, Kind, MethodRouter<App>)> {
         ("get", "/healthz", Bounded, get(health::healthz)),
         ("get", "/readyz", Bounded, get(health::readyz)),
         ("get", "/openapi.yaml", Bounded, get(openapi)),
+        ("get", "/", Bounded, get(crate::web::evaluations)),
+        (
+            "get",
+            "/evaluations/{id}",
+            Bounded,
+            get(crate::web::evaluation),
+        ),
+        ("get", "/teachers/{id}", Bounded, get(crate::web::teacher)),
+        ("get", "/assets/style.css", Bounded, get(crate::web::style)),
     ]
 }
 

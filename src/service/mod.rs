@@ -1,9 +1,11 @@
 //! What the service does, between the HTTP edge and the store: uploads,
 //! evaluations, reports. Handlers call these functions and hold no logic.
 
+mod dashboard;
 mod evaluations;
 mod uploads;
 
+pub use dashboard::{EvaluationView, ListView, TeacherView};
 pub use evaluations::{EvaluationRequest, ListQuery};
 pub use uploads::Uploaded;
 

@@ -12,7 +12,7 @@ use uuid::Uuid;
 
 use super::{
     CancelOutcome, EvaluationFilter, EvaluationRecord, MAX_ATTEMPTS, NewEvaluation, Page, Progress,
-    Status, Store, StoreError, fmt_time, page, parse_time,
+    Status, Store, StoreError, bind_filter, fmt_time, page, parse_time, verdict_str,
 };
 use crate::report::{Report, Verdict};
 
@@ -22,13 +22,6 @@ macro_rules! evaluation_columns {
          progress_done, progress_total, error, attempts, created_at, started_at, finished_at, \
          verdict, recommended_id"
     };
-}
-
-fn verdict_str(v: Verdict) -> &'static str {
-    match v {
-        Verdict::Go => "go",
-        Verdict::NoGo => "no-go",
-    }
 }
 
 fn evaluation_from_row(row: &SqliteRow) -> Result<EvaluationRecord, StoreError> {
@@ -164,27 +157,15 @@ impl Store {
         limit: u32,
         cursor: Option<Uuid>,
     ) -> Result<Page<EvaluationRecord>, StoreError> {
-        let (tag_key, tag_value) = f.tag.clone().unzip();
-        let rows = sqlx::query(concat!(
+        let q = sqlx::query(concat!(
             "SELECT ",
             evaluation_columns!(),
-            " FROM evaluations e WHERE (?1 IS NULL OR e.project = ?1)",
-            " AND (?2 IS NULL OR e.teacher_id = ?2) AND (?3 IS NULL OR e.status = ?3)",
-            " AND (?4 IS NULL OR e.verdict = ?4)",
-            " AND (?5 IS NULL OR EXISTS (SELECT 1 FROM evaluation_tags t",
-            "      WHERE t.evaluation_id = e.id AND t.key = ?5 AND t.value = ?6))",
-            " AND (?7 IS NULL OR e.id < ?7) ORDER BY e.id DESC LIMIT ?8"
-        ))
-        .bind(&f.project)
-        .bind(f.teacher.map(|t| t.to_string()))
-        .bind(f.status.map(Status::as_str))
-        .bind(f.verdict.map(verdict_str))
-        .bind(tag_key)
-        .bind(tag_value)
-        .bind(cursor.map(|c| c.to_string()))
-        .bind(limit as i64 + 1)
-        .fetch_all(&self.pool)
-        .await?;
+            " FROM evaluations e",
+            evaluation_filter!()
+        ));
+        let rows = bind_filter(q, f, limit, cursor)
+            .fetch_all(&self.pool)
+            .await?;
         let items = rows
             .iter()
             .map(evaluation_from_row)

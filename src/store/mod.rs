@@ -2,8 +2,24 @@
 //! applied at start. SQL is kept portable (no SQLite-only functions) so that
 //! another database can be added here without touching the layers above.
 
+/// The filters of evaluation lists as SQL, on alias `e`; parameters ?1 to
+/// ?8 are bound by `bind_filter`.
+macro_rules! evaluation_filter {
+    () => {
+        concat!(
+            " WHERE (?1 IS NULL OR e.project = ?1)",
+            " AND (?2 IS NULL OR e.teacher_id = ?2) AND (?3 IS NULL OR e.status = ?3)",
+            " AND (?4 IS NULL OR e.verdict = ?4)",
+            " AND (?5 IS NULL OR EXISTS (SELECT 1 FROM evaluation_tags g",
+            "      WHERE g.evaluation_id = e.id AND g.key = ?5 AND g.value = ?6))",
+            " AND (?7 IS NULL OR e.id < ?7) ORDER BY e.id DESC LIMIT ?8"
+        )
+    };
+}
+
 mod blobs;
 mod catalog;
+mod dashboard;
 mod error;
 mod evaluations;
 mod records;
@@ -19,6 +35,7 @@ use time::OffsetDateTime;
 use time::format_description::well_known::Rfc3339;
 
 pub use blobs::{BlobKind, Blobs, Incoming, Received};
+pub use dashboard::{EvaluationRow, TrendPoint};
 pub use error::StoreError;
 pub use records::{
     CancelOutcome, DatasetRecord, EvaluationFilter, EvaluationRecord, ModelRecord, NewEvaluation,
@@ -88,5 +105,32 @@ fn page<T>(mut rows: Vec<T>, limit: u32, id: impl Fn(&T) -> String) -> Page<T> {
     Page {
         items: rows,
         next_cursor,
+    }
+}
+
+type SqliteQuery<'q> = sqlx::query::Query<'q, sqlx::Sqlite, sqlx::sqlite::SqliteArguments>;
+
+/// Binds `evaluation_filter!`'s parameters, fetching one row past `limit`.
+fn bind_filter<'q>(
+    q: SqliteQuery<'q>,
+    f: &EvaluationFilter,
+    limit: u32,
+    cursor: Option<uuid::Uuid>,
+) -> SqliteQuery<'q> {
+    let (tag_key, tag_value) = f.tag.clone().unzip();
+    q.bind(f.project.clone())
+        .bind(f.teacher.map(|t| t.to_string()))
+        .bind(f.status.map(Status::as_str))
+        .bind(f.verdict.map(verdict_str))
+        .bind(tag_key)
+        .bind(tag_value)
+        .bind(cursor.map(|c| c.to_string()))
+        .bind(limit as i64 + 1)
+}
+
+fn verdict_str(v: crate::report::Verdict) -> &'static str {
+    match v {
+        crate::report::Verdict::Go => "go",
+        crate::report::Verdict::NoGo => "no-go",
     }
 }
