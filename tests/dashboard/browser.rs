@@ -1,0 +1,219 @@
+//! Headless Chromium through chromedriver, with the few actions the tests use.
+
+use std::net::TcpListener;
+use std::process::{Child, Command, Stdio};
+use std::time::{Duration, Instant};
+
+use fantoccini::elements::Element;
+use fantoccini::wd::WebDriverCompatibleCommand;
+use fantoccini::{Client, ClientBuilder, Locator};
+use serde_json::{Value, json};
+
+pub struct Browser {
+    client: Client,
+    driver: Child,
+}
+
+/// Elements found by CSS, with their attributes and text.
+pub struct Found(Element);
+
+impl Found {
+    pub async fn attr(&self, name: &str) -> Option<String> {
+        self.0.attr(name).await.unwrap()
+    }
+
+    pub async fn text(&self) -> String {
+        self.0.text().await.unwrap()
+    }
+}
+
+/// chromedriver's log endpoint (Selenium's), for the browser console.
+#[derive(Debug)]
+struct BrowserLog;
+
+impl WebDriverCompatibleCommand for BrowserLog {
+    fn endpoint(
+        &self,
+        base: &url::Url,
+        session: Option<&str>,
+    ) -> Result<url::Url, url::ParseError> {
+        base.join(&format!("session/{}/se/log", session.unwrap_or_default()))
+    }
+
+    fn method_and_body(&self, _: &url::Url) -> (http::Method, Option<String>) {
+        (
+            http::Method::POST,
+            Some(json!({"type": "browser"}).to_string()),
+        )
+    }
+}
+
+fn free_port() -> u16 {
+    TcpListener::bind("127.0.0.1:0")
+        .unwrap()
+        .local_addr()
+        .unwrap()
+        .port()
+}
+
+impl Browser {
+    pub async fn start() -> Browser {
+        let port = free_port();
+        let driver = Command::new("chromedriver")
+            .arg(format!("--port={port}"))
+            .stdout(Stdio::null())
+            .stderr(Stdio::null())
+            .spawn()
+            .expect("chromedriver is needed: apt-get install chromium chromium-driver");
+        let profile = tempfile::tempdir().unwrap().keep();
+        let caps = json!({
+            "goog:chromeOptions": {
+                "binary": "/usr/bin/chromium",
+                "args": ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+                         "--disable-background-networking", "--disable-component-update", "--disable-sync",
+                         "--disable-dev-shm-usage", "--window-size=1280,1600",
+                         format!("--user-data-dir={}", profile.display())],
+            },
+            "goog:loggingPrefs": {"browser": "ALL"},
+        });
+        let mut builder =
+            ClientBuilder::new(hyper_util::client::legacy::connect::HttpConnector::new());
+        builder.capabilities(caps.as_object().unwrap().clone());
+        let start = Instant::now();
+        let client = loop {
+            match builder.connect(&format!("http://127.0.0.1:{port}")).await {
+                Ok(c) => break c,
+                Err(e) if start.elapsed() < Duration::from_secs(20) => {
+                    let _ = e;
+                    tokio::time::sleep(Duration::from_millis(200)).await;
+                }
+                Err(e) => panic!("cannot start a browser session: {e}"),
+            }
+        };
+        Browser { client, driver }
+    }
+
+    pub async fn open(&self, url: &str) {
+        self.client.goto(url).await.unwrap();
+    }
+
+    pub async fn title(&self) -> String {
+        self.client.title().await.unwrap()
+    }
+
+    pub async fn all(&self, css: &str) -> Vec<Found> {
+        self.client
+            .find_all(Locator::Css(css))
+            .await
+            .unwrap()
+            .into_iter()
+            .map(Found)
+            .collect()
+    }
+
+    pub async fn text(&self, css: &str) -> String {
+        self.client
+            .find(Locator::Css(css))
+            .await
+            .unwrap()
+            .text()
+            .await
+            .unwrap()
+    }
+
+    pub async fn click(&self, css: &str) {
+        self.client
+            .find(Locator::Css(css))
+            .await
+            .unwrap()
+            .click()
+            .await
+            .unwrap();
+    }
+
+    pub async fn select(&self, css: &str, value: &str) {
+        let el = self.client.find(Locator::Css(css)).await.unwrap();
+        el.select_by_value(value).await.unwrap();
+    }
+
+    pub async fn type_into(&self, css: &str, text: &str) {
+        self.client
+            .find(Locator::Css(css))
+            .await
+            .unwrap()
+            .send_keys(text)
+            .await
+            .unwrap();
+    }
+
+    /// The ids of the evaluation rows shown.
+    pub async fn row_ids(&self) -> Vec<String> {
+        let mut ids = Vec::new();
+        for r in self.all("table#evaluations tr.row").await {
+            ids.push(r.attr("data-id").await.unwrap());
+        }
+        ids
+    }
+
+    /// (done, stage text, status) of the evaluation page shown.
+    pub async fn progress(&self) -> (u64, String, String) {
+        let status = self.client.find(Locator::Css("#status")).await.unwrap();
+        let state = status
+            .attr("data-status")
+            .await
+            .unwrap()
+            .unwrap_or_default();
+        let done = match self.client.find(Locator::Css("#progress")).await {
+            Ok(p) => p
+                .attr("value")
+                .await
+                .unwrap()
+                .and_then(|v| v.parse().ok())
+                .unwrap_or(0),
+            Err(_) => 0,
+        };
+        (done, status.text().await.unwrap(), state)
+    }
+
+    /// Console messages at error level since the session started.
+    pub async fn console_errors(&self) -> Vec<String> {
+        let log: Value = self
+            .client
+            .issue_cmd(BrowserLog)
+            .await
+            .expect("chromedriver returns the browser log");
+        log.as_array()
+            .map(|entries| {
+                entries
+                    .iter()
+                    .filter(|e| e["level"] == "SEVERE")
+                    .map(|e| e["message"].as_str().unwrap_or_default().to_string())
+                    .collect()
+            })
+            .unwrap_or_default()
+    }
+
+    /// Saves a screenshot for a person to look at; a page mid-reload may
+    /// refuse one, which is no failure of the page.
+    pub async fn screenshot(&self, name: &str) {
+        let Ok(png) = self.client.screenshot().await else {
+            eprintln!("screenshot {name} skipped: the page was reloading");
+            return;
+        };
+        let dir = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("target/dashboard-screens");
+        std::fs::create_dir_all(&dir).unwrap();
+        std::fs::write(dir.join(format!("{name}.png")), png).unwrap();
+    }
+
+    pub async fn close(mut self) {
+        let _ = self.client.clone().close().await;
+        let _ = self.driver.kill();
+        let _ = self.driver.wait();
+    }
+}
+
+impl Drop for Browser {
+    fn drop(&mut self) {
+        let _ = self.driver.kill();
+    }
+}
