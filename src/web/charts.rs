@@ -5,7 +5,7 @@ use maud::{Markup, html};
 
 const W: f64 = 520.0;
 const H: f64 = 320.0;
-const PAD_L: f64 = 58.0;
+const PAD_L: f64 = 66.0;
 const PAD_R: f64 = 16.0;
 const PAD_T: f64 = 16.0;
 const PAD_B: f64 = 44.0;
@@ -53,20 +53,30 @@ impl Scale {
     }
 }
 
-fn frame(x: &Scale, y: &Scale, x_label: &str, y_label: &str) -> Markup {
+/// Axes, grid and labels. `x_ticks` replaces the evenly spaced ticks of x
+/// (the trend's x is an evaluation's position, not a quantity).
+fn frame(
+    x: &Scale,
+    y: &Scale,
+    x_ticks: Option<Vec<(f64, String)>>,
+    x_label: &str,
+    y_label: &str,
+) -> Markup {
+    let x_ticks =
+        x_ticks.unwrap_or_else(|| x.ticks().into_iter().map(|t| (t, x.label(t))).collect());
     html! {
         @for t in y.ticks() {
             line class="grid" x1=(PAD_L) x2=(W - PAD_R) y1=(y.at(t)) y2=(y.at(t)) {}
             text x=(PAD_L - 6.0) y=(y.at(t) + 4.0) text-anchor="end" { (y.label(t)) }
         }
-        @for t in x.ticks() {
-            text x=(x.at(t)) y=(H - PAD_B + 16.0) text-anchor="middle" { (x.label(t)) }
+        @for (t, label) in &x_ticks {
+            text x=(x.at(*t)) y=(H - PAD_B + 16.0) text-anchor="middle" { (label) }
         }
         line class="axis" x1=(PAD_L) x2=(W - PAD_R) y1=(H - PAD_B) y2=(H - PAD_B) {}
         line class="axis" x1=(PAD_L) x2=(PAD_L) y1=(PAD_T) y2=(H - PAD_B) {}
         text x=((PAD_L + W - PAD_R) / 2.0) y=(H - 8.0) text-anchor="middle" { (x_label) }
-        text x="14" y=((PAD_T + H - PAD_B) / 2.0) text-anchor="middle"
-            transform=(format!("rotate(-90 14 {})", (PAD_T + H - PAD_B) / 2.0)) { (y_label) }
+        text x="11" y=((PAD_T + H - PAD_B) / 2.0) text-anchor="middle"
+            transform=(format!("rotate(-90 11 {})", (PAD_T + H - PAD_B) / 2.0)) { (y_label) }
     }
 }
 
@@ -95,7 +105,7 @@ pub(super) fn scatter(points: &[Point], x_label: &str, y_label: &str, summary: &
     html! {
         svg class="chart scatter" viewBox=(format!("0 0 {W} {H}")) role="img" aria-label=(summary) {
             title { (summary) }
-            (frame(&x, &y, x_label, y_label))
+            (frame(&x, &y, None, x_label, y_label))
             @if path.len() > 1 {
                 polyline class="front-line" points=(path.join(" ")) {}
             }
@@ -127,7 +137,7 @@ pub(super) fn trend(values: &[(String, f64)], y_label: &str, summary: &str) -> M
     html! {
         svg class="chart trend" viewBox=(format!("0 0 {W} {H}")) role="img" aria-label=(summary) {
             title { (summary) }
-            (frame(&x, &y, "evaluation (oldest to newest)", y_label))
+            (frame(&x, &y, Some(positions(values.len())), "evaluation, oldest to newest", y_label))
             polyline class="series-a" points=(path.join(" ")) {}
             @for (i, (label, v)) in values.iter().enumerate() {
                 circle class="point" cx=(format!("{:.1}", x.at(i as f64))) cy=(format!("{:.1}", y.at(*v))) r="4" {
@@ -136,4 +146,13 @@ pub(super) fn trend(values: &[(String, f64)], y_label: &str, summary: &str) -> M
             }
         }
     }
+}
+
+/// Ticks at evaluation positions 1..=n, at most eight of them.
+fn positions(n: usize) -> Vec<(f64, String)> {
+    let step = n.div_ceil(8).max(1);
+    (0..n)
+        .step_by(step)
+        .map(|i| (i as f64, format!("#{}", i + 1)))
+        .collect()
 }
