@@ -12,9 +12,9 @@ use uuid::Uuid;
 
 use super::{
     CancelOutcome, EvaluationFilter, EvaluationRecord, MAX_ATTEMPTS, NewEvaluation, Page, Progress,
-    Status, Store, StoreError, bind_filter, fmt_time, page, parse_time, verdict_str,
+    Status, Store, StoreError, bind_filter, fmt_time, page, parse_time, parse_verdict, verdict_str,
 };
-use crate::report::{Report, Verdict};
+use crate::report::Report;
 
 macro_rules! evaluation_columns {
     () => {
@@ -32,11 +32,7 @@ fn evaluation_from_row(row: &SqliteRow) -> Result<EvaluationRecord, StoreError> 
             .transpose()
     };
     let status: String = row.try_get("status")?;
-    let verdict = match row.try_get::<Option<String>, _>("verdict")?.as_deref() {
-        Some("go") => Some(Verdict::Go),
-        Some("no-go") => Some(Verdict::NoGo),
-        _ => None,
-    };
+    let verdict = parse_verdict(row.try_get("verdict")?);
     Ok(EvaluationRecord {
         id: Uuid::parse_str(row.try_get("id")?)?,
         project: row.try_get("project")?,

@@ -134,3 +134,11 @@ fn verdict_str(v: crate::report::Verdict) -> &'static str {
         crate::report::Verdict::NoGo => "no-go",
     }
 }
+
+fn parse_verdict(stored: Option<String>) -> Option<crate::report::Verdict> {
+    match stored.as_deref() {
+        Some("go") => Some(crate::report::Verdict::Go),
+        Some("no-go") => Some(crate::report::Verdict::NoGo),
+        _ => None,
+    }
+}
