@@ -190,3 +190,171 @@ pub fn judge(gates: &Gates, candidate: &Candidate, samples: u64) -> GateOutcome 
         checks,
     }
 }
+
+#[cfg(test)]
+pub(crate) mod tests {
+    use super::*;
+    use crate::engine::metrics::accuracy::{Accuracy, StudentAccuracy};
+    use crate::engine::metrics::fidelity::Fidelity;
+    use crate::engine::stats::Z95;
+    use crate::report::{Latency, ModelSummary, Size, StudentLatency};
+    use serde_json::json;
+
+    /// A candidate with round figures: 90 of 100 samples agree, top1 0.8,
+    /// the teacher at 0.85 (gained 2, lost 7), p90 2 ms, speedup 3.
+    pub(crate) fn candidate() -> Candidate {
+        let own = Accuracy {
+            top1: 0.8,
+            top1_ci: [0.0, 1.0],
+            topk: 1.0,
+            ece: 0.05,
+            ece_bins: 15,
+            nll: 0.5,
+            correct: 80,
+        };
+        Candidate {
+            rank: 0,
+            model: ModelSummary {
+                id: uuid::Uuid::nil(),
+                name: "s".into(),
+                sha256: "0".into(),
+            },
+            output_kind: crate::engine::logits::OutputKind::Logits,
+            fidelity: Fidelity {
+                agreement: 0.9,
+                agreement_ci: [0.0, 1.0],
+                topk_agreement: 1.0,
+                kl: 0.25,
+                kl_t1: 0.5,
+                js: 0.1,
+                soft_cross_entropy: 1.0,
+                logit_mse: 1.0,
+                class_agreement: vec![],
+                disagreements: vec![],
+                agreed: 90,
+            },
+            accuracy: Some(StudentAccuracy {
+                own,
+                kd_loss: 1.0,
+                delta: 0.8 - 0.85,
+                delta_ci: [-0.1, 0.0],
+                retention: Some(0.8 / 0.85),
+                mcnemar_p: 0.1,
+                negative_flip_rate: 0.07,
+                gained: 2,
+                lost: 7,
+            }),
+            size: Size {
+                bytes: 1000,
+                parameters: 500,
+                macs: None,
+                size_ratio: 0.25,
+                parameter_ratio: Some(0.25),
+            },
+            latency: StudentLatency {
+                own: Latency {
+                    p50_ms: 1.0,
+                    p90_ms: 2.0,
+                    p99_ms: 3.0,
+                    mean_ms: 1.2,
+                    stdev_ms: None,
+                    throughput_sps: 1e3,
+                },
+                speedup: 3.0,
+            },
+            pareto_optimal: true,
+            gates: GateOutcome::default(),
+        }
+    }
+
+    fn judged(gates: serde_json::Value) -> GateOutcome {
+        judge(
+            &Gates::parse(gates.as_object().unwrap()).unwrap(),
+            &candidate(),
+            100,
+        )
+    }
+
+    #[test]
+    fn every_gate_passes_at_exactly_its_threshold() {
+        // metrics.md: min_* passes when the figure >= value, max_* when <= value.
+        let c = candidate();
+        let out = judged(json!({
+            "min_agreement": 0.9, "max_kl": 0.25, "min_top1": 0.8, "max_top1_drop": -c.accuracy.as_ref().unwrap().delta,
+            "min_retention": 0.8 / 0.85, "max_negative_flip_rate": 0.07, "max_ece": 0.05, "max_p90_ms": 2.0,
+            "min_speedup": 3.0, "max_bytes": 1000, "max_size_ratio": 0.25, "max_parameters": 500,
+        }));
+        assert_eq!(out.checks.len(), 12);
+        for check in &out.checks {
+            assert!(check.passed, "{check:?}");
+        }
+        assert!(out.passed);
+    }
+
+    #[test]
+    fn every_gate_fails_just_past_its_threshold() {
+        let out = judged(json!({
+            "min_agreement": 0.9000001, "max_kl": 0.2499999, "min_top1": 0.8000001, "max_top1_drop": 0.0499999,
+            "min_retention": 0.95, "max_negative_flip_rate": 0.0699999, "max_ece": 0.0499999, "max_p90_ms": 1.9999999,
+            "min_speedup": 3.0000001, "max_bytes": 999, "max_size_ratio": 0.2499999, "max_parameters": 499,
+        }));
+        for check in &out.checks {
+            assert!(!check.passed, "{check:?}");
+        }
+        assert!(!out.passed);
+    }
+
+    #[test]
+    fn confidence_judges_the_cautious_end_of_each_interval() {
+        let out = judged(json!({
+            "min_agreement": 0.0, "min_top1": 0.0, "max_top1_drop": 1.0, "max_negative_flip_rate": 1.0,
+            "confidence": 0.95,
+        }));
+        let judged = |g: &str| {
+            out.checks
+                .iter()
+                .find(|c| c.gate == g)
+                .unwrap()
+                .judged
+                .unwrap()
+        };
+        // z of 0.95 is Phi^-1(0.975) = 1.959963984540054 (metrics.md), to within an ulp.
+        let close = |a: f64, b: f64| (a - b).abs() <= 1e-12 * b.abs();
+        assert!(close(judged("min_agreement"), wilson(90, 100, Z95)[0]));
+        assert!(close(judged("min_top1"), wilson(80, 100, Z95)[0]));
+        assert!(close(
+            judged("max_negative_flip_rate"),
+            wilson(7, 100, Z95)[1]
+        ));
+        assert!(close(
+            judged("max_top1_drop"),
+            -paired_wald(2, 7, 100, Z95)[0]
+        ));
+        let agreement = out
+            .checks
+            .iter()
+            .find(|c| c.gate == "min_agreement")
+            .unwrap();
+        assert_eq!(agreement.estimate, Some(0.9));
+        assert!(
+            agreement.judged.unwrap() < 0.9,
+            "the lower bound lies below the estimate"
+        );
+    }
+
+    #[test]
+    fn an_undefined_retention_fails_its_gate_saying_why() {
+        let mut c = candidate();
+        c.accuracy.as_mut().unwrap().retention = None;
+        let gates = Gates::parse(json!({"min_retention": 0.5}).as_object().unwrap()).unwrap();
+        let out = judge(&gates, &c, 100);
+        assert!(!out.passed);
+        assert!(
+            out.checks[0]
+                .reason
+                .as_deref()
+                .unwrap()
+                .contains("teacher's top1 is 0")
+        );
+    }
+}

@@ -86,3 +86,73 @@ pub fn verdict(ranked: &[Candidate]) -> (Verdict, Option<Uuid>) {
         _ => (Verdict::NoGo, None),
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::engine::gates::tests::candidate;
+
+    fn named(name: &str, agreement: f64, p50: f64, bytes: u64, passed: bool) -> Candidate {
+        let mut c = candidate();
+        c.model.name = name.into();
+        c.model.id = uuid::Uuid::now_v7();
+        c.fidelity.agreement = agreement;
+        c.latency.own.p50_ms = p50;
+        c.size.bytes = bytes;
+        c.gates.passed = passed;
+        c
+    }
+
+    fn names(cs: &[Candidate]) -> Vec<&str> {
+        cs.iter().map(|c| c.model.name.as_str()).collect()
+    }
+
+    #[test]
+    fn candidates_passing_every_gate_rank_first_then_by_the_chosen_figure() {
+        let mut cs = vec![
+            named("best-but-failing", 0.99, 1.0, 10, false),
+            named("good", 0.95, 1.0, 10, true),
+            named("better", 0.97, 1.0, 10, true),
+        ];
+        rank(&mut cs, RankBy::Agreement);
+        assert_eq!(names(&cs), vec!["better", "good", "best-but-failing"]);
+        assert_eq!(cs.iter().map(|c| c.rank).collect::<Vec<_>>(), vec![1, 2, 3]);
+        assert_eq!(verdict(&cs), (Verdict::Go, Some(cs[0].model.id)));
+    }
+
+    #[test]
+    fn ties_break_by_p50_then_bytes_then_upload_order() {
+        let mut cs = vec![
+            named("first-uploaded-big", 0.9, 1.0, 20, true),
+            named("slow", 0.9, 2.0, 10, true),
+            named("small", 0.9, 1.0, 10, true),
+            named("later-twin", 0.9, 1.0, 20, true),
+        ];
+        rank(&mut cs, RankBy::Agreement);
+        assert_eq!(
+            names(&cs),
+            vec!["small", "first-uploaded-big", "later-twin", "slow"]
+        );
+    }
+
+    #[test]
+    fn nothing_passing_is_no_go_with_no_recommendation() {
+        let mut cs = vec![named("a", 0.9, 1.0, 10, false)];
+        rank(&mut cs, RankBy::Kl);
+        assert_eq!(verdict(&cs), (Verdict::NoGo, None));
+    }
+
+    #[test]
+    fn the_pareto_front_holds_the_candidates_nobody_dominates() {
+        let mut cs = vec![
+            named("fast", 0.90, 1.0, 10, true),
+            named("faithful", 0.97, 3.0, 30, true),
+            named("dominated", 0.90, 2.0, 20, true),
+            named("equal-to-fast", 0.90, 1.0, 10, true),
+        ];
+        mark_pareto(&mut cs, RankBy::Agreement);
+        let front: Vec<bool> = cs.iter().map(|c| c.pareto_optimal).collect();
+        // Equal candidates do not dominate each other: no strict improvement.
+        assert_eq!(front, vec![true, true, false, true]);
+    }
+}
