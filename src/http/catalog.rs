@@ -9,6 +9,7 @@ use axum::response::{IntoResponse, Response};
 use super::extract::{QueryMap, path_id};
 use crate::error::AppError;
 use crate::service::{App, Uploaded};
+use crate::store::{DatasetRecord, ModelRecord};
 
 fn declared_length(headers: &HeaderMap) -> Option<u64> {
     headers
@@ -50,7 +51,7 @@ pub(super) async fn upload_model(
     body: Body,
 ) -> Result<Response, AppError> {
     let up = app
-        .upload_model(
+        .upload::<ModelRecord, _, _>(
             upload_name(&q)?,
             body.into_data_stream(),
             declared_length(&headers),
@@ -88,7 +89,7 @@ pub(super) async fn upload_dataset(
     body: Body,
 ) -> Result<Response, AppError> {
     let up = app
-        .upload_dataset(
+        .upload::<DatasetRecord, _, _>(
             upload_name(&q)?,
             body.into_data_stream(),
             declared_length(&headers),

@@ -7,7 +7,7 @@ mod uploads;
 
 pub use dashboard::{EvaluationView, ListView, TeacherView};
 pub use evaluations::{EvaluationRequest, ListQuery};
-pub use uploads::Uploaded;
+pub use uploads::{Upload, Uploaded};
 
 use crate::queue::Queue;
 use crate::store::Store;

@@ -10,7 +10,9 @@ use super::App;
 use crate::error::AppError;
 use crate::queue::child::Ended;
 use crate::queue::protocol::{Message, Task};
-use crate::store::{BlobKind, DatasetRecord, ModelRecord, Received};
+use std::path::PathBuf;
+
+use crate::store::{BlobKind, DatasetRecord, ModelRecord, Received, Store, StoreError};
 
 /// A stored record and whether this upload created it.
 pub struct Uploaded<T> {
@@ -80,92 +82,106 @@ impl App {
         outcome
     }
 
-    pub async fn upload_model<S, E>(
+    /// Stores an upload of kind `K`: streamed and hashed, answered from the
+    /// store when the same bytes are already there, else checked by the
+    /// engine in a child and recorded.
+    pub async fn upload<K: Upload, S, E>(
         &self,
         name: String,
         body: S,
         declared_len: Option<u64>,
-    ) -> Result<Uploaded<ModelRecord>, AppError>
+    ) -> Result<Uploaded<K>, AppError>
     where
         S: Stream<Item = Result<Bytes, E>> + Unpin,
         E: std::fmt::Display,
     {
         let received = self.receive(body, declared_len).await?;
-        if let Some(existing) = self.store.model_by_sha(&received.sha256).await? {
+        if let Some(existing) = K::stored(&self.store, &received.sha256).await? {
             self.store.blobs.discard(&received).await;
             return Ok(Uploaded {
                 record: existing,
                 created: false,
             });
         }
-        let info = match self
-            .inspect(
-                Task::InspectModel {
-                    path: received.path.clone(),
-                },
-                &received,
-            )
-            .await?
-        {
-            Message::Model(info) => *info,
-            other => {
-                return Err(AppError::Internal(format!(
-                    "unexpected check answer {other:?}"
-                )));
-            }
+        let answer = self
+            .inspect(K::check(received.path.clone()), &received)
+            .await?;
+        let record = K::record(name, &received, answer)?;
+        self.store.blobs.commit(K::BLOB, &received).await?;
+        let (record, created) = K::insert(&self.store, &record).await?;
+        Ok(Uploaded { record, created })
+    }
+}
+
+/// What differs between model and evaluation-set uploads.
+pub trait Upload: Sized {
+    const BLOB: BlobKind;
+    /// The engine task that checks an upload of this kind.
+    fn check(path: PathBuf) -> Task;
+    /// The record of a checked upload, from the engine's answer.
+    fn record(name: String, received: &Received, answer: Message) -> Result<Self, AppError>;
+    fn stored(
+        store: &Store,
+        sha256: &str,
+    ) -> impl Future<Output = Result<Option<Self>, StoreError>> + Send;
+    fn insert(
+        store: &Store,
+        record: &Self,
+    ) -> impl Future<Output = Result<(Self, bool), StoreError>> + Send;
+}
+
+fn unexpected(answer: Message) -> AppError {
+    AppError::Internal(format!("unexpected check answer {answer:?}"))
+}
+
+impl Upload for ModelRecord {
+    const BLOB: BlobKind = BlobKind::Model;
+
+    fn check(path: PathBuf) -> Task {
+        Task::InspectModel { path }
+    }
+
+    fn record(name: String, received: &Received, answer: Message) -> Result<Self, AppError> {
+        let Message::Model(info) = answer else {
+            return Err(unexpected(answer));
         };
-        self.store.blobs.commit(BlobKind::Model, &received).await?;
-        let record = ModelRecord {
+        Ok(ModelRecord {
             id: Uuid::now_v7(),
             name,
             sha256: received.sha256.clone(),
             bytes: received.bytes,
-            info,
+            info: *info,
             created_at: OffsetDateTime::now_utc(),
-        };
-        let (record, created) = self.store.insert_model(&record).await?;
-        Ok(Uploaded { record, created })
+        })
     }
 
-    pub async fn upload_dataset<S, E>(
-        &self,
-        name: String,
-        body: S,
-        declared_len: Option<u64>,
-    ) -> Result<Uploaded<DatasetRecord>, AppError>
-    where
-        S: Stream<Item = Result<Bytes, E>> + Unpin,
-        E: std::fmt::Display,
-    {
-        let received = self.receive(body, declared_len).await?;
-        if let Some(existing) = self.store.dataset_by_sha(&received.sha256).await? {
-            self.store.blobs.discard(&received).await;
-            return Ok(Uploaded {
-                record: existing,
-                created: false,
-            });
-        }
-        let info = match self
-            .inspect(
-                Task::InspectDataset {
-                    path: received.path.clone(),
-                },
-                &received,
-            )
-            .await?
-        {
-            Message::Dataset(info) => info,
-            other => {
-                return Err(AppError::Internal(format!(
-                    "unexpected check answer {other:?}"
-                )));
-            }
+    fn stored(
+        store: &Store,
+        sha256: &str,
+    ) -> impl Future<Output = Result<Option<Self>, StoreError>> + Send {
+        store.model_by_sha(sha256)
+    }
+
+    fn insert(
+        store: &Store,
+        record: &Self,
+    ) -> impl Future<Output = Result<(Self, bool), StoreError>> + Send {
+        store.insert_model(record)
+    }
+}
+
+impl Upload for DatasetRecord {
+    const BLOB: BlobKind = BlobKind::Dataset;
+
+    fn check(path: PathBuf) -> Task {
+        Task::InspectDataset { path }
+    }
+
+    fn record(name: String, received: &Received, answer: Message) -> Result<Self, AppError> {
+        let Message::Dataset(info) = answer else {
+            return Err(unexpected(answer));
         };
-        self.store
-            .blobs
-            .commit(BlobKind::Dataset, &received)
-            .await?;
-        let record = DatasetRecord {
+        Ok(DatasetRecord {
             id: Uuid::now_v7(),
             name,
             sha256: received.sha256.clone(),
@@ -174,8 +190,20 @@ impl App {
             arrays: info.arrays,
             has_labels: info.has_labels,
             created_at: OffsetDateTime::now_utc(),
-        };
-        let (record, created) = self.store.insert_dataset(&record).await?;
-        Ok(Uploaded { record, created })
+        })
+    }
+
+    fn stored(
+        store: &Store,
+        sha256: &str,
+    ) -> impl Future<Output = Result<Option<Self>, StoreError>> + Send {
+        store.dataset_by_sha(sha256)
+    }
+
+    fn insert(
+        store: &Store,
+        record: &Self,
+    ) -> impl Future<Output = Result<(Self, bool), StoreError>> + Send {
+        store.insert_dataset(record)
     }
 }
