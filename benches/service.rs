@@ -14,7 +14,6 @@ use std::sync::Arc;
 use std::time::Instant;
 
 use proctor::store::{NewEvaluation, Store};
-use serde_json::json;
 
 const EVALUATIONS: usize = 10_000;
 const CONNECTIONS: usize = 32;
@@ -107,7 +106,7 @@ async fn main() {
             teacher,
             students: vec![teacher],
             dataset: set,
-            request: json!({"seeded": true}),
+            request: serde_json::to_value(proctor::engine::settings::Settings::default()).unwrap(),
             tags: serde_json::Map::new(),
             created_at: time::OffsetDateTime::now_utc(),
         };

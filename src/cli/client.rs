@@ -126,7 +126,8 @@ impl Client {
             .await
             .map_err(|e| ClientError::Input(format!("cannot read {}: {e}", path.display())))?;
         let len = file.metadata().await.map(|m| m.len()).ok();
-        let body = reqwest::Body::wrap_stream(tokio_util::io::ReaderStream::new(file));
+        let body =
+            reqwest::Body::wrap_stream(tokio_util::io::ReaderStream::with_capacity(file, 1 << 18));
         let mut req = self
             .http
             .post(self.url(kind.path()))

@@ -162,14 +162,27 @@ impl<'a> Feed<'a> {
 
     /// The next `rows` samples as one tensor per model input.
     pub fn next_batch(&mut self, rows: usize) -> EngineResult<TVec<TValue>> {
-        let mut out = TVec::new();
+        Ok(self
+            .next_tensors(rows)?
+            .into_iter()
+            .map(Tensor::into_tvalue)
+            .collect())
+    }
+
+    /// The same as plain tensors, which (unlike values) may cross threads.
+    pub fn next_tensors(&mut self, rows: usize) -> EngineResult<Vec<Tensor>> {
+        let mut out = Vec::with_capacity(self.streams.len());
         for (b, stream) in self.binding.inputs.iter().zip(&mut self.streams) {
             stream.read(rows, &mut self.buf)?;
             let mut shape = vec![rows];
             shape.extend_from_slice(&b.row_shape);
-            out.push(
-                convert(&self.buf, &stream.header, b, &shape, self.next_sample)?.into_tvalue(),
-            );
+            out.push(convert(
+                &self.buf,
+                &stream.header,
+                b,
+                &shape,
+                self.next_sample,
+            )?);
         }
         self.next_sample += rows;
         Ok(out)

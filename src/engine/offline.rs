@@ -69,6 +69,10 @@ pub struct Offline {
     pub engine_time: Duration,
 }
 
+/// Batches read ahead of the engine: reading and decompressing the set
+/// overlaps inference instead of adding to it.
+const READ_AHEAD: usize = 2;
+
 pub fn run(
     m: &Prepared,
     set: &EvalSet,
@@ -81,21 +85,41 @@ pub fn run(
     let mut raw = Logits::new(m.classes);
     raw.data.reserve(n * m.classes);
     let mut engine_time = Duration::ZERO;
-    let mut done = 0;
-    while done < n {
-        if stop() {
-            return Err(EngineError::Canceled);
+    std::thread::scope(|scope| {
+        let (tx, rx) = std::sync::mpsc::sync_channel::<EngineResult<Vec<Tensor>>>(READ_AHEAD);
+        scope.spawn(move || {
+            let mut read = 0;
+            while read < n {
+                let rows = batch.min(n - read);
+                let next = feed.next_tensors(rows);
+                let failed = next.is_err();
+                // A closed channel means the engine side stopped; so do we.
+                if tx.send(next).is_err() || failed {
+                    return;
+                }
+                read += rows;
+            }
+        });
+        let mut done = 0;
+        while done < n {
+            if stop() {
+                return Err(EngineError::Canceled);
+            }
+            let rows = batch.min(n - done);
+            let plan = m.plan(rows)?;
+            let tensors = rx.recv().map_err(|_| {
+                EngineError::InvalidDataset("the evaluation set ended early".into())
+            })??;
+            let inputs: TVec<TValue> = tensors.into_iter().map(Tensor::into_tvalue).collect();
+            let started = Instant::now();
+            let out = plan.run(inputs)?;
+            engine_time += started.elapsed();
+            append_scores(m, &out, rows, done, &mut raw)?;
+            done += rows;
+            tick(rows as u64);
         }
-        let rows = batch.min(n - done);
-        let plan = m.plan(rows)?;
-        let inputs = feed.next_batch(rows)?;
-        let started = Instant::now();
-        let out = plan.run(inputs)?;
-        engine_time += started.elapsed();
-        append_scores(m, &out, rows, done, &mut raw)?;
-        done += rows;
-        tick(rows as u64);
-    }
+        Ok(())
+    })?;
     Ok(Offline { raw, engine_time })
 }
 

@@ -33,7 +33,8 @@ pub struct Blobs {
 
 /// An upload being written: bytes so far and their running hash.
 pub struct Incoming {
-    file: fs::File,
+    /// Buffered: each write to a tokio file is a trip to the blocking pool.
+    file: tokio::io::BufWriter<fs::File>,
     path: PathBuf,
     hasher: Sha256,
     bytes: u64,
@@ -75,7 +76,7 @@ impl Blobs {
             .root
             .join("incoming")
             .join(uuid::Uuid::now_v7().to_string());
-        let file = fs::File::create(&path).await?;
+        let file = tokio::io::BufWriter::with_capacity(1 << 20, fs::File::create(&path).await?);
         Ok(Incoming {
             file,
             path,
@@ -125,7 +126,9 @@ impl Incoming {
 
     pub async fn finish(mut self) -> Result<Received, StoreError> {
         self.file.flush().await?;
-        self.file.sync_all().await?;
+        // Durable before it is recorded: a crash must not leave a row whose
+        // file is incomplete.
+        self.file.get_ref().sync_all().await?;
         Ok(Received {
             path: self.path,
             sha256: hex::encode(self.hasher.finalize()),

@@ -51,30 +51,36 @@ struct Sums {
     mse: f64,
 }
 
-/// sum_c q (log q - log p), with 0 log 0 = 0.
-fn kl_row(log_q: &[f64], log_p: &[f64]) -> f64 {
-    log_q
-        .iter()
-        .zip(log_p)
-        .map(|(&lq, &lp)| {
-            let q = lq.exp();
-            if q == 0.0 { 0.0 } else { q * (lq - lp) }
-        })
-        .sum()
+/// KL(q || p) and the cross-entropy -sum q log p of one row, from logs,
+/// with 0 log 0 = 0: one exp per class serves both.
+fn kl_and_cross_entropy(log_q: &[f64], log_p: &[f64]) -> (f64, f64) {
+    let (mut kl, mut ce) = (0.0, 0.0);
+    for (&lq, &lp) in log_q.iter().zip(log_p) {
+        let q = lq.exp();
+        if q != 0.0 {
+            kl += q * (lq - lp);
+            ce -= q * lp;
+        }
+    }
+    (kl, ce)
 }
 
-/// Jensen-Shannon divergence of two distributions given as logs (Lin 1991).
-fn js_row(log_a: &[f64], log_b: &[f64]) -> f64 {
-    let half_kl_to_mean = |x: f64, m: f64| if x == 0.0 { 0.0 } else { x * (x / m).ln() };
-    log_a
-        .iter()
-        .zip(log_b)
-        .map(|(&la, &lb)| {
-            let (a, b) = (la.exp(), lb.exp());
-            let m = 0.5 * (a + b);
-            0.5 * (half_kl_to_mean(a, m) + half_kl_to_mean(b, m))
-        })
-        .sum()
+/// KL(a || b) and the Jensen-Shannon divergence (Lin 1991) of one row,
+/// natural log, from the two distributions' logs.
+fn kl_and_js(log_a: &[f64], log_b: &[f64]) -> (f64, f64) {
+    let (mut kl, mut js) = (0.0, 0.0);
+    for (&la, &lb) in log_a.iter().zip(log_b) {
+        let (a, b) = (la.exp(), lb.exp());
+        let lm = (0.5 * (a + b)).ln();
+        if a != 0.0 {
+            kl += a * (la - lb);
+            js += 0.5 * a * (la - lm);
+        }
+        if b != 0.0 {
+            js += 0.5 * b * (lb - lm);
+        }
+    }
+    (kl, js)
 }
 
 /// Mean squared difference of per-row centred logits.
@@ -115,10 +121,12 @@ pub fn fidelity(teacher: &Logits, student: &Logits, temperature: f64) -> Fidelit
         log_softmax(zs, temperature, &mut lp);
         log_softmax(zt, 1.0, &mut lq1);
         log_softmax(zs, 1.0, &mut lp1);
-        s.kl += kl_row(&lq, &lp);
-        s.kl_t1 += kl_row(&lq1, &lp1);
-        s.js += js_row(&lq1, &lp1);
-        s.soft_ce -= lq.iter().zip(&lp).map(|(&q, &p)| q.exp() * p).sum::<f64>();
+        let (kl, ce) = kl_and_cross_entropy(&lq, &lp);
+        let (kl_t1, js) = kl_and_js(&lq1, &lp1);
+        s.kl += kl;
+        s.soft_ce += ce;
+        s.kl_t1 += kl_t1;
+        s.js += js;
         s.mse += centred_mse_row(zs, zt);
     }
     let nf = n as f64;
