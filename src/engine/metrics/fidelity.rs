@@ -66,19 +66,19 @@ fn kl_and_cross_entropy(log_q: &[f64], log_p: &[f64]) -> (f64, f64) {
 }
 
 /// KL(a || b) and the Jensen-Shannon divergence (Lin 1991) of one row,
-/// natural log, from the two distributions' logs.
+/// natural log, from the two distributions' logs. JS uses the ratio form
+/// x ln(x / m), which is exactly 0 for identical rows (the log form
+/// x (ln x - ln m) is not, by rounding, and can dip below 0).
 fn kl_and_js(log_a: &[f64], log_b: &[f64]) -> (f64, f64) {
+    let term = |x: f64, m: f64| if x == 0.0 { 0.0 } else { x * (x / m).ln() };
     let (mut kl, mut js) = (0.0, 0.0);
     for (&la, &lb) in log_a.iter().zip(log_b) {
         let (a, b) = (la.exp(), lb.exp());
-        let lm = (0.5 * (a + b)).ln();
         if a != 0.0 {
             kl += a * (la - lb);
-            js += 0.5 * a * (la - lm);
         }
-        if b != 0.0 {
-            js += 0.5 * b * (lb - lm);
-        }
+        let m = 0.5 * (a + b);
+        js += 0.5 * (term(a, m) + term(b, m));
     }
     (kl, js)
 }
