@@ -49,7 +49,7 @@ impl App {
                 incoming.abandon().await;
                 return Err(too_large());
             }
-            incoming.write(&chunk).await?;
+            incoming.write(chunk).await?;
         }
         if incoming.bytes() == 0 {
             incoming.abandon().await;

@@ -6,7 +6,6 @@ use std::path::{Path, PathBuf};
 
 use sha2::{Digest, Sha256};
 use tokio::fs;
-use tokio::io::AsyncWriteExt;
 
 use super::error::StoreError;
 
@@ -31,13 +30,36 @@ pub struct Blobs {
     root: PathBuf,
 }
 
-/// An upload being written: bytes so far and their running hash.
+/// An upload being written. Chunks go to one blocking thread that hashes
+/// and writes them with plain file I/O, so the async side only forwards
+/// buffers and the hashing overlaps the network.
 pub struct Incoming {
-    /// Buffered: each write to a tokio file is a trip to the blocking pool.
-    file: tokio::io::BufWriter<fs::File>,
     path: PathBuf,
-    hasher: Sha256,
     bytes: u64,
+    chunks: tokio::sync::mpsc::Sender<bytes::Bytes>,
+    writer: tokio::task::JoinHandle<std::io::Result<String>>,
+}
+
+/// Chunks in flight between the request and the writer thread.
+const IN_FLIGHT: usize = 16;
+
+fn write_and_hash(
+    path: &Path,
+    mut chunks: tokio::sync::mpsc::Receiver<bytes::Bytes>,
+) -> std::io::Result<String> {
+    use std::io::Write;
+    let file = std::fs::File::create(path)?;
+    let mut out = std::io::BufWriter::with_capacity(1 << 20, file);
+    let mut hasher = Sha256::new();
+    while let Some(chunk) = chunks.blocking_recv() {
+        hasher.update(&chunk);
+        out.write_all(&chunk)?;
+    }
+    let file = out.into_inner().map_err(|e| e.into_error())?;
+    // Durable before it is recorded: a crash must not leave a row whose
+    // file is incomplete.
+    file.sync_all()?;
+    Ok(hex::encode(hasher.finalize()))
 }
 
 /// A fully written upload, not yet in the store.
@@ -76,12 +98,14 @@ impl Blobs {
             .root
             .join("incoming")
             .join(uuid::Uuid::now_v7().to_string());
-        let file = tokio::io::BufWriter::with_capacity(1 << 20, fs::File::create(&path).await?);
+        let (chunks, rx) = tokio::sync::mpsc::channel(IN_FLIGHT);
+        let target = path.clone();
+        let writer = tokio::task::spawn_blocking(move || write_and_hash(&target, rx));
         Ok(Incoming {
-            file,
             path,
-            hasher: Sha256::new(),
             bytes: 0,
+            chunks,
+            writer,
         })
     }
 
@@ -117,27 +141,50 @@ impl Incoming {
         self.bytes
     }
 
-    pub async fn write(&mut self, chunk: &[u8]) -> Result<(), StoreError> {
-        self.hasher.update(chunk);
+    pub async fn write(&mut self, chunk: bytes::Bytes) -> Result<(), StoreError> {
         self.bytes += chunk.len() as u64;
-        self.file.write_all(chunk).await?;
+        if self.chunks.send(chunk).await.is_err() {
+            // The writer stopped: its error says why.
+            return Err(self.stopped_writer().await);
+        }
         Ok(())
     }
 
-    pub async fn finish(mut self) -> Result<Received, StoreError> {
-        self.file.flush().await?;
-        // Durable before it is recorded: a crash must not leave a row whose
-        // file is incomplete.
-        self.file.get_ref().sync_all().await?;
+    async fn stopped_writer(&mut self) -> StoreError {
+        match (&mut self.writer).await {
+            Ok(Err(e)) => StoreError::Io(e),
+            Ok(Ok(_)) => StoreError::Corrupt("the blob writer ended early".into()),
+            Err(e) => StoreError::Corrupt(format!("the blob writer failed: {e}")),
+        }
+    }
+
+    pub async fn finish(self) -> Result<Received, StoreError> {
+        let Incoming {
+            path,
+            bytes,
+            chunks,
+            writer,
+        } = self;
+        drop(chunks);
+        let sha256 = writer
+            .await
+            .map_err(|e| StoreError::Corrupt(format!("the blob writer failed: {e}")))??;
         Ok(Received {
-            path: self.path,
-            sha256: hex::encode(self.hasher.finalize()),
-            bytes: self.bytes,
+            path,
+            sha256,
+            bytes,
         })
     }
 
     pub async fn abandon(self) {
-        drop(self.file);
-        let _ = fs::remove_file(&self.path).await;
+        let Incoming {
+            path,
+            chunks,
+            writer,
+            ..
+        } = self;
+        drop(chunks);
+        let _ = writer.await;
+        let _ = fs::remove_file(&path).await;
     }
 }
