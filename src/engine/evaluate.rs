@@ -5,7 +5,6 @@ use std::collections::HashMap;
 use std::path::PathBuf;
 use std::sync::Mutex;
 use std::sync::atomic::{AtomicBool, AtomicU64, AtomicUsize, Ordering};
-use std::time::{Duration, Instant};
 
 use serde::{Deserialize, Serialize};
 use time::OffsetDateTime;
@@ -112,13 +111,10 @@ pub struct Hooks<'a> {
     pub cpu: &'a dyn CpuLease,
 }
 
-/// Where the time went, for benchmarks and logs.
+/// How the evaluation ran, beyond what the report says.
 #[derive(Debug, Clone, Default)]
 pub struct Timings {
-    pub offline_wall: Duration,
-    pub offline_engine: Vec<(String, Duration)>,
-    pub scoring: Duration,
-    pub latency_wall: Duration,
+    /// The teacher's scores came from the cache; its offline pass did not run.
     pub teacher_from_cache: bool,
 }
 
@@ -234,9 +230,7 @@ pub fn evaluate(job: &Job, options: &Options, hooks: &Hooks<'_>) -> EngineResult
     timings.teacher_from_cache = cached_teacher.is_some();
 
     hooks.cpu.shared()?;
-    let started = Instant::now();
     let mut results = run_offline(&setup, batch, threads, cached_teacher.is_none(), hooks)?;
-    timings.offline_wall = started.elapsed();
     if let Some(hit) = cached_teacher {
         results[setup.teacher] = Some(hit);
     } else if let (Some(cache), Some(r)) = (&cache, &results[setup.teacher]) {
@@ -253,22 +247,12 @@ pub fn evaluate(job: &Job, options: &Options, hooks: &Hooks<'_>) -> EngineResult
         .into_iter()
         .map(|r| r.expect("every model ran or was cached"))
         .collect();
-    timings.offline_engine = setup
-        .models
-        .iter()
-        .zip(&results)
-        .map(|(m, r)| (m.label.clone(), r.engine_time))
-        .collect();
 
-    let started = Instant::now();
     (hooks.progress)(Stage::Scoring, 0, job.students.len() as u64);
     let scores = score(job, &setup, &results, hooks);
-    timings.scoring = started.elapsed();
 
     hooks.cpu.exclusive()?;
-    let started = Instant::now();
     let latencies = measure_latency(job, &setup, hooks)?;
-    timings.latency_wall = started.elapsed();
 
     let throughput = |ix: usize| n as f64 / results[ix].engine_time.as_secs_f64().max(1e-12);
     let report = assemble(
