@@ -48,13 +48,9 @@ fn model_ref(path: &Path) -> ModelRef {
 
 /// Writes an NPY float32 [n, 3, 16, 16] array of pseudo-random values.
 fn write_big_set(path: &Path, n: usize) {
-    let dict = format!("{{'descr': '<f4', 'fortran_order': False, 'shape': ({n}, 3, 16, 16), }}");
-    let pad = (64 - (10 + dict.len() + 1) % 64) % 64;
-    let header = format!("{dict}{}\n", " ".repeat(pad));
     let mut f = std::io::BufWriter::new(std::fs::File::create(path).unwrap());
-    f.write_all(b"\x93NUMPY\x01\x00").unwrap();
-    f.write_all(&(header.len() as u16).to_le_bytes()).unwrap();
-    f.write_all(header.as_bytes()).unwrap();
+    f.write_all(&proctor::engine::npy::header_bytes("<f4", &[n, 3, 16, 16]))
+        .unwrap();
     let mut state = 0x2545F4914F6CDD1Du64;
     let mut row = Vec::with_capacity(768 * 4);
     for _ in 0..n {

@@ -30,13 +30,9 @@ fn status_kib(pid: u32, key: &str) -> u64 {
 
 fn write_npy(path: &Path, bytes: usize) {
     let rows = bytes / (64 * 4);
-    let dict = format!("{{'descr': '<f4', 'fortran_order': False, 'shape': ({rows}, 64), }}");
-    let pad = (64 - (10 + dict.len() + 1) % 64) % 64;
-    let header = format!("{dict}{}\n", " ".repeat(pad));
     let mut f = std::io::BufWriter::new(std::fs::File::create(path).unwrap());
-    f.write_all(b"\x93NUMPY\x01\x00").unwrap();
-    f.write_all(&(header.len() as u16).to_le_bytes()).unwrap();
-    f.write_all(header.as_bytes()).unwrap();
+    f.write_all(&proctor::engine::npy::header_bytes("<f4", &[rows, 64]))
+        .unwrap();
     let chunk: Vec<u8> = (0..(1 << 20))
         .map(|i: u32| (i.wrapping_mul(2654435761) >> 13) as u8)
         .collect();

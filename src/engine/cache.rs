@@ -97,19 +97,10 @@ fn write_atomic(path: &Path, bytes: &[u8]) -> EngineResult<()> {
     fs::rename(&tmp, path).map_err(EngineError::io("writing the teacher cache"))
 }
 
-/// An NPY 1.0 float64 C-order array, header padded to 64 bytes as numpy does.
+/// An NPY float64 [n, c] array, readable with `numpy.load`.
 fn f64_matrix_bytes(m: &Logits) -> Vec<u8> {
-    let dict = format!(
-        "{{'descr': '<f8', 'fortran_order': False, 'shape': ({}, {}), }}",
-        m.n, m.c
-    );
-    let unpadded = 10 + dict.len() + 1;
-    let pad = (64 - unpadded % 64) % 64;
-    let header = format!("{dict}{}\n", " ".repeat(pad));
-    let mut out = Vec::with_capacity(10 + header.len() + m.data.len() * 8);
-    out.extend_from_slice(b"\x93NUMPY\x01\x00");
-    out.extend_from_slice(&(header.len() as u16).to_le_bytes());
-    out.extend_from_slice(header.as_bytes());
+    let mut out = npy::header_bytes("<f8", &[m.n, m.c]);
+    out.reserve(m.data.len() * 8);
     for v in &m.data {
         out.extend_from_slice(&v.to_le_bytes());
     }

@@ -211,6 +211,26 @@ pub fn read_rows(
     })
 }
 
+/// An NPY 1.0 header for a little-endian C-order array of numpy type
+/// `descr` (e.g. `<f8`), padded so the data starts on a 64-byte boundary, as
+/// numpy writes it.
+pub fn header_bytes(descr: &str, shape: &[usize]) -> Vec<u8> {
+    let dims: String = shape.iter().map(|d| format!("{d}, ")).collect();
+    let dims = if shape.len() == 1 {
+        dims.trim_end().to_string()
+    } else {
+        dims.trim_end_matches(", ").to_string()
+    };
+    let dict = format!("{{'descr': '{descr}', 'fortran_order': False, 'shape': ({dims}), }}");
+    let pad = (64 - (MAGIC.len() + 4 + dict.len() + 1) % 64) % 64;
+    let header = format!("{dict}{}\n", " ".repeat(pad));
+    let mut out = MAGIC.to_vec();
+    out.extend_from_slice(&[1, 0]);
+    out.extend_from_slice(&(header.len() as u16).to_le_bytes());
+    out.extend_from_slice(header.as_bytes());
+    out
+}
+
 /// A whole numeric `.npy` file as f64, with its shape (for cached scores and
 /// reference fixtures; evaluation sets are streamed instead).
 pub fn read_f64(path: &std::path::Path) -> EngineResult<(Vec<usize>, Vec<f64>)> {
@@ -314,6 +334,23 @@ mod tests {
             &[],
         );
         assert_eq!(read_header(&mut bytes.as_slice()).unwrap().shape, vec![7]);
+    }
+
+    #[test]
+    fn written_headers_read_back_and_align_the_data() {
+        for shape in [vec![7], vec![3, 4], vec![2, 3, 16, 16]] {
+            let bytes = header_bytes("<f4", &shape);
+            assert_eq!(bytes.len() % 64, 0, "numpy aligns the data to 64 bytes");
+            let h = read_header(&mut bytes.as_slice()).unwrap();
+            assert_eq!(
+                h,
+                Header {
+                    dtype: Dtype::Float32,
+                    big_endian: false,
+                    shape
+                }
+            );
+        }
     }
 
     #[test]

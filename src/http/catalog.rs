@@ -27,21 +27,12 @@ fn upload_name(q: &QueryMap) -> Result<String, AppError> {
 
 /// 201 with a Location for a new record, 200 for a file already stored.
 fn uploaded<T: serde::Serialize>(up: Uploaded<T>, location: String) -> Response {
-    if up.created {
-        (
-            StatusCode::CREATED,
-            [(header::LOCATION, location)],
-            Json(up.record),
-        )
-            .into_response()
+    let status = if up.created {
+        StatusCode::CREATED
     } else {
-        (
-            StatusCode::OK,
-            [(header::LOCATION, location)],
-            Json(up.record),
-        )
-            .into_response()
-    }
+        StatusCode::OK
+    };
+    (status, [(header::LOCATION, location)], Json(up.record)).into_response()
 }
 
 pub(super) async fn upload_model(

@@ -60,17 +60,14 @@ pub(crate) fn list_query(q: &QueryMap) -> Result<ListQuery, AppError> {
             })
         })
         .transpose()?;
-    let verdict = match q.text("verdict").as_deref() {
-        None => None,
-        Some("go") => Some(Verdict::Go),
-        Some("no-go") => Some(Verdict::NoGo),
-        Some(_) => {
-            return Err(AppError::bad_request(
-                "verdict must be go or no-go",
-                Some("verdict"),
-            ));
-        }
-    };
+    let verdict = q
+        .text("verdict")
+        .map(|v| {
+            Verdict::parse(&v).ok_or_else(|| {
+                AppError::bad_request("verdict must be go or no-go", Some("verdict"))
+            })
+        })
+        .transpose()?;
     let tag = q
         .text("tag")
         .map(|t| {

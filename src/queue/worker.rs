@@ -81,7 +81,7 @@ impl Queue {
 
     /// Stops a running evaluation's child, if this process runs it.
     pub fn stop(&self, id: Uuid) {
-        if let Some(token) = self.lock_running().get(&id) {
+        if let Some(token) = self.inner.running().get(&id) {
             token.cancel();
         }
     }
@@ -113,9 +113,13 @@ impl Queue {
             let _ = h.await;
         }
     }
+}
 
-    fn lock_running(&self) -> std::sync::MutexGuard<'_, HashMap<Uuid, CancellationToken>> {
-        self.inner.running.lock().unwrap_or_else(|p| p.into_inner())
+impl Inner {
+    /// Tokens of the evaluations this process runs now; a poisoned lock
+    /// still holds a usable map.
+    fn running(&self) -> std::sync::MutexGuard<'_, HashMap<Uuid, CancellationToken>> {
+        self.running.lock().unwrap_or_else(|p| p.into_inner())
     }
 }
 
@@ -145,19 +149,11 @@ async fn run_one(inner: &Arc<Inner>, owner: &str, record: EvaluationRecord) {
     let id = record.id;
     let span = tracing::info_span!("evaluation", %id, attempt = record.attempts);
     let token = inner.shutdown.child_token();
-    inner
-        .running
-        .lock()
-        .unwrap_or_else(|p| p.into_inner())
-        .insert(id, token.clone());
+    inner.running().insert(id, token.clone());
     let outcome = execute(inner, owner, &record, &token)
         .instrument(span)
         .await;
-    inner
-        .running
-        .lock()
-        .unwrap_or_else(|p| p.into_inner())
-        .remove(&id);
+    inner.running().remove(&id);
     if let Err(e) = outcome {
         tracing::error!(error = %e, "recording an evaluation's outcome failed");
     }

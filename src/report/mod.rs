@@ -119,3 +119,19 @@ pub enum Verdict {
     #[serde(rename = "no-go")]
     NoGo,
 }
+
+impl Verdict {
+    /// The name used in JSON, in the database and in query strings.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Verdict::Go => "go",
+            Verdict::NoGo => "no-go",
+        }
+    }
+
+    pub fn parse(s: &str) -> Option<Verdict> {
+        [Verdict::Go, Verdict::NoGo]
+            .into_iter()
+            .find(|v| v.as_str() == s)
+    }
+}

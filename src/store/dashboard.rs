@@ -8,9 +8,7 @@ use sqlx::sqlite::SqliteRow;
 use time::OffsetDateTime;
 use uuid::Uuid;
 
-use super::{
-    EvaluationFilter, Page, Status, Store, StoreError, bind_filter, page, parse_time, parse_verdict,
-};
+use super::{EvaluationFilter, Page, Status, Store, StoreError, bind_filter, page, parse_time};
 use crate::report::Verdict;
 
 /// One line of the evaluations page.
@@ -58,7 +56,10 @@ fn row_from(row: &SqliteRow) -> Result<EvaluationRow, StoreError> {
         done: row.try_get::<i64, _>("progress_done")? as u64,
         total: row.try_get::<i64, _>("progress_total")? as u64,
         created_at: parse_time(row.try_get("created_at")?)?,
-        verdict: parse_verdict(row.try_get("verdict")?),
+        verdict: row
+            .try_get::<Option<String>, _>("verdict")?
+            .as_deref()
+            .and_then(Verdict::parse),
         teacher: Uuid::parse_str(row.try_get("teacher_id")?)?,
         teacher_name: row.try_get("teacher_name")?,
         candidates: row.try_get::<i64, _>("candidates")? as u64,

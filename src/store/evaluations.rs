@@ -12,9 +12,9 @@ use uuid::Uuid;
 
 use super::{
     CancelOutcome, EvaluationFilter, EvaluationRecord, MAX_ATTEMPTS, NewEvaluation, Page, Progress,
-    Status, Store, StoreError, bind_filter, fmt_time, page, parse_time, parse_verdict, verdict_str,
+    Status, Store, StoreError, bind_filter, fmt_time, page, parse_time,
 };
-use crate::report::Report;
+use crate::report::{Report, Verdict};
 
 macro_rules! evaluation_columns {
     () => {
@@ -32,7 +32,10 @@ fn evaluation_from_row(row: &SqliteRow) -> Result<EvaluationRecord, StoreError> 
             .transpose()
     };
     let status: String = row.try_get("status")?;
-    let verdict = parse_verdict(row.try_get("verdict")?);
+    let verdict = row
+        .try_get::<Option<String>, _>("verdict")?
+        .as_deref()
+        .and_then(Verdict::parse);
     Ok(EvaluationRecord {
         id: Uuid::parse_str(row.try_get("id")?)?,
         project: row.try_get("project")?,
@@ -223,7 +226,7 @@ impl Store {
              AND lease_owner = ?5",
         )
         .bind(fmt_time(report.finished_at))
-        .bind(verdict_str(report.verdict))
+        .bind(report.verdict.as_str())
         .bind(report.recommended.map(|r| r.to_string()))
         .bind(&key)
         .bind(owner)

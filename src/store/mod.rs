@@ -121,24 +121,9 @@ fn bind_filter<'q>(
     q.bind(f.project.clone())
         .bind(f.teacher.map(|t| t.to_string()))
         .bind(f.status.map(Status::as_str))
-        .bind(f.verdict.map(verdict_str))
+        .bind(f.verdict.map(crate::report::Verdict::as_str))
         .bind(tag_key)
         .bind(tag_value)
         .bind(cursor.map(|c| c.to_string()))
         .bind(limit as i64 + 1)
-}
-
-fn verdict_str(v: crate::report::Verdict) -> &'static str {
-    match v {
-        crate::report::Verdict::Go => "go",
-        crate::report::Verdict::NoGo => "no-go",
-    }
-}
-
-fn parse_verdict(stored: Option<String>) -> Option<crate::report::Verdict> {
-    match stored.as_deref() {
-        Some("go") => Some(crate::report::Verdict::Go),
-        Some("no-go") => Some(crate::report::Verdict::NoGo),
-        _ => None,
-    }
 }

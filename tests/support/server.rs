@@ -106,50 +106,36 @@ impl Server {
         }
     }
 
+    fn url(&self, path: &str) -> String {
+        format!("{}{path}", self.base)
+    }
+
+    async fn send(req: reqwest::RequestBuilder) -> Answer {
+        Self::answer(req.send().await.unwrap()).await
+    }
+
     pub async fn get(&self, path: &str) -> Answer {
-        Self::answer(
-            self.client
-                .get(format!("{}{path}", self.base))
-                .send()
-                .await
-                .unwrap(),
-        )
-        .await
+        Self::send(self.client.get(self.url(path))).await
     }
 
     pub async fn delete(&self, path: &str) -> Answer {
-        Self::answer(
-            self.client
-                .delete(format!("{}{path}", self.base))
-                .send()
-                .await
-                .unwrap(),
-        )
-        .await
+        Self::send(self.client.delete(self.url(path))).await
     }
 
     pub async fn post_bytes(&self, path: &str, bytes: Vec<u8>) -> Answer {
-        let res = self
+        let req = self
             .client
-            .post(format!("{}{path}", self.base))
-            .header("content-type", "application/octet-stream")
-            .body(bytes)
-            .send()
-            .await
-            .unwrap();
-        Self::answer(res).await
+            .post(self.url(path))
+            .header("content-type", "application/octet-stream");
+        Self::send(req.body(bytes)).await
     }
 
     pub async fn post_json_text(&self, path: &str, text: &str) -> Answer {
-        let res = self
+        let req = self
             .client
-            .post(format!("{}{path}", self.base))
-            .header("content-type", "application/json")
-            .body(text.to_string())
-            .send()
-            .await
-            .unwrap();
-        Self::answer(res).await
+            .post(self.url(path))
+            .header("content-type", "application/json");
+        Self::send(req.body(text.to_string())).await
     }
 
     pub async fn upload_model(&self, file: &Path, name: &str) -> Answer {
