@@ -169,13 +169,7 @@ async fn a_report_asked_for_before_it_exists_is_409() {
     let s = Server::start(&[]);
     let teacher = s.model_id(&case_dir("mlp").join("teacher.onnx")).await;
     let set = s.dataset_id(&case_dir("mlp").join("data.npz")).await;
-    let a = s
-        .create_evaluation(
-            &json!({"teacher": teacher, "students": [teacher], "dataset": set,
-            "latency": {"warmup": 0, "iterations": 100000}}),
-        )
-        .await;
-    let id = a.body["id"].as_str().unwrap();
+    let id = s.long_evaluation(&teacher, &[&teacher], &set).await;
     assert_problem(&s.get(&format!("/v1/evaluations/{id}/report")).await, 409);
     s.delete(&format!("/v1/evaluations/{id}")).await;
 }

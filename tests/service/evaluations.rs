@@ -122,13 +122,8 @@ async fn lists_filter_by_project_teacher_and_status() {
 async fn canceling_a_running_evaluation_stops_it_and_its_report_stays_unavailable() {
     let s = Server::start(&[]);
     let (teacher, students, set) = upload_case(&s, "mlp", &["student_wide.onnx"]).await;
-    let a = s
-        .create_evaluation(&json!({
-            "teacher": teacher, "students": students, "dataset": set,
-            "latency": {"warmup": 0, "iterations": 100000},
-        }))
-        .await;
-    let id = a.body["id"].as_str().unwrap().to_string();
+    let students: Vec<&str> = students.iter().map(String::as_str).collect();
+    let id = s.long_evaluation(&teacher, &students, &set).await;
     s.wait_status(&id, "running", LONG).await;
     let c = s.delete(&format!("/v1/evaluations/{id}")).await;
     assert_eq!(c.status, 200, "{}", c.body);

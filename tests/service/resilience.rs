@@ -138,13 +138,7 @@ async fn sigterm_puts_a_running_evaluation_back_in_the_queue() {
     let mut s = Server::start_in(dir.path(), &[]);
     let teacher = s.model_id(&case_dir("mlp").join("teacher.onnx")).await;
     let set = s.dataset_id(&case_dir("mlp").join("data.npz")).await;
-    let a = s
-        .create_evaluation(
-            &json!({"teacher": teacher, "students": [teacher], "dataset": set,
-            "latency": {"warmup": 0, "iterations": 100000}}),
-        )
-        .await;
-    let id = a.body["id"].as_str().unwrap().to_string();
+    let id = s.long_evaluation(&teacher, &[&teacher], &set).await;
     s.wait_status(&id, "running", LONG).await;
     assert!(s.terminate().success(), "a clean exit on SIGTERM");
     let s = Server::start_in(dir.path(), &["--workers", "1"]);

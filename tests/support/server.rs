@@ -185,6 +185,16 @@ impl Server {
             .await
     }
 
+    /// Queues an evaluation that keeps running for a long while (100,000
+    /// latency rounds) and returns its id, for tests that need one running.
+    pub async fn long_evaluation(&self, teacher: &str, students: &[&str], set: &str) -> String {
+        let body = serde_json::json!({"teacher": teacher, "students": students, "dataset": set,
+            "latency": {"warmup": 0, "iterations": 100000}});
+        let a = self.create_evaluation(&body).await;
+        assert_eq!(a.status, 202, "{}", a.body);
+        a.body["id"].as_str().unwrap().to_string()
+    }
+
     pub async fn evaluation(&self, id: &str) -> Value {
         self.get(&format!("/v1/evaluations/{id}")).await.body
     }
