@@ -121,14 +121,28 @@ impl Browser {
             .unwrap()
     }
 
+    /// Clicks something that navigates, and waits for the new page: the old
+    /// document is marked first, so only a fresh, fully loaded one counts
+    /// (the URL alone can change before the new document replaces the old).
     pub async fn click(&self, css: &str) {
-        self.client
-            .find(Locator::Css(css))
-            .await
-            .unwrap()
-            .click()
-            .await
-            .unwrap();
+        let mark = "document.documentElement.dataset.leaving = '1'";
+        self.client.execute(mark, vec![]).await.unwrap();
+        let target = self.client.find(Locator::Css(css)).await.unwrap();
+        target.click().await.unwrap();
+        let fresh = "return !document.documentElement.dataset.leaving \
+                     && document.readyState === 'complete'";
+        let start = Instant::now();
+        loop {
+            let done = self.client.execute(fresh, vec![]).await.ok();
+            if done.as_ref().and_then(Value::as_bool) == Some(true) {
+                return;
+            }
+            assert!(
+                start.elapsed() < Duration::from_secs(20),
+                "no new page after clicking {css}"
+            );
+            tokio::time::sleep(Duration::from_millis(50)).await;
+        }
     }
 
     pub async fn select(&self, css: &str, value: &str) {
@@ -155,24 +169,31 @@ impl Browser {
         ids
     }
 
-    /// (done, stage text, status) of the evaluation page shown.
+    /// (done, stage text, status) of the evaluation page shown. The page
+    /// reloads itself while the evaluation runs, so a read that meets the
+    /// reload is tried again.
     pub async fn progress(&self) -> (u64, String, String) {
-        let status = self.client.find(Locator::Css("#status")).await.unwrap();
-        let state = status
-            .attr("data-status")
-            .await
-            .unwrap()
-            .unwrap_or_default();
+        for _ in 0..50 {
+            if let Ok(p) = self.read_progress().await {
+                return p;
+            }
+            tokio::time::sleep(Duration::from_millis(100)).await;
+        }
+        panic!("the evaluation page never showed its status");
+    }
+
+    async fn read_progress(&self) -> Result<(u64, String, String), fantoccini::error::CmdError> {
+        let status = self.client.find(Locator::Css("#status")).await?;
+        let state = status.attr("data-status").await?.unwrap_or_default();
         let done = match self.client.find(Locator::Css("#progress")).await {
             Ok(p) => p
                 .attr("value")
-                .await
-                .unwrap()
+                .await?
                 .and_then(|v| v.parse().ok())
                 .unwrap_or(0),
             Err(_) => 0,
         };
-        (done, status.text().await.unwrap(), state)
+        Ok((done, status.text().await?, state))
     }
 
     /// Console messages at error level since the session started.
