@@ -2,24 +2,24 @@
 //! a person, on a quiet machine). Run with `cargo bench --bench engine`.
 //!
 //! 1. Peak RSS while evaluating a set of at least 1 GB (streamed from disk).
-//! 2. The offline pass's time per sample against a bare tract run of the
+//! 2. The bulk pass's time per sample against a bare tract run of the
 //!    same plan and batch.
 //! 3. Metric computation time as a share of inference time.
 
 use std::io::Write;
 use std::path::{Path, PathBuf};
-use std::sync::atomic::AtomicBool;
 use std::time::{Duration, Instant};
 
+use proctor::engine::bulk;
 use proctor::engine::dataset::EvalSet;
-use proctor::engine::evaluate::{Alone, DatasetRef, Hooks, Job, ModelRef, Options, evaluate};
-use proctor::engine::feed::{Feed, bind};
+use proctor::engine::feed::Feed;
 use proctor::engine::logits::{OutputKindChoice, to_logits};
 use proctor::engine::metrics::accuracy::{StudentInputs, accuracy, student_accuracy};
 use proctor::engine::metrics::fidelity::fidelity;
 use proctor::engine::model::Model;
-use proctor::engine::offline::{self, Prepared};
 use proctor::engine::settings::Settings;
+use proctor::engine::setup::Prepared;
+use proctor::engine::{Alone, DatasetRef, Hooks, Job, ModelRef, Options, evaluate};
 use sha2::Digest;
 
 fn cases() -> PathBuf {
@@ -89,18 +89,17 @@ fn bench_peak_rss() {
             latency: proctor::engine::settings::LatencySettings {
                 warmup: 2,
                 iterations: 20,
+                ..Default::default()
             },
             ..Settings::default()
         },
     };
-    let cancel = AtomicBool::new(false);
     let started = Instant::now();
     let out = evaluate(
         &job,
         &Options::default(),
         &Hooks {
             progress: &|_, _, _| {},
-            cancel: &cancel,
             cpu: &Alone,
         },
     )
@@ -121,12 +120,11 @@ fn median(mut v: Vec<f64>) -> f64 {
     v[v.len() / 2]
 }
 
-fn bench_offline_overhead(case: &str, model: &str, batch: usize) -> Duration {
+fn bench_bulk_overhead(case: &str, model: &str, batch: usize) -> Duration {
     let dir = cases().join(case);
     let set = EvalSet::open(&dir.join("data.npz")).unwrap();
     let m = Model::load(&dir.join(model)).unwrap();
-    let binding = bind(&m, &set, model).unwrap();
-    let prepared = Prepared::new(model.into(), m, binding, 0).unwrap();
+    let prepared = Prepared::new("teacher", model.into(), m, &set, None).unwrap();
     let n = set.samples();
     let plan = prepared.plan(batch).unwrap();
     let inputs = Feed::open(&set, &prepared.binding)
@@ -150,7 +148,9 @@ fn bench_offline_overhead(case: &str, model: &str, batch: usize) -> Duration {
         let t = Instant::now();
         let mut samples = 0;
         while samples < reps * batch {
-            let r = offline::run(&prepared, &set, batch, &never, &|_| {}).unwrap();
+            let r = bulk::run(&prepared, &set, batch, &never, &|_| {})
+                .unwrap()
+                .unwrap();
             total_engine += r.engine_time;
             samples += n;
         }
@@ -158,7 +158,7 @@ fn bench_offline_overhead(case: &str, model: &str, batch: usize) -> Duration {
     }
     let (bare, pass) = (median(bare), median(pass));
     println!(
-        "offline pass {case}/{model} batch {batch}: {:.2} us/sample, bare tract {:.2} us/sample, ratio {:.3}",
+        "bulk pass {case}/{model} batch {batch}: {:.2} us/sample, bare tract {:.2} us/sample, ratio {:.3}",
         pass * 1e6,
         bare * 1e6,
         pass / bare
@@ -220,7 +220,7 @@ fn main() {
         ("text", "teacher.onnx"),
         ("wide", "teacher.onnx"),
     ] {
-        bench_offline_overhead(case, model, 32);
+        bench_bulk_overhead(case, model, 32);
     }
     for (case, t, s) in [
         ("mlp", "teacher.onnx", "student_wide.onnx"),

@@ -13,7 +13,7 @@ use std::process::{Command, Stdio};
 use std::sync::Arc;
 use std::time::Instant;
 
-use proctor::store::{NewEvaluation, Store};
+use proctor::store::{AppliedRequest, NewEvaluation, Store};
 
 const EVALUATIONS: usize = 10_000;
 const CONNECTIONS: usize = 32;
@@ -98,12 +98,14 @@ async fn main() {
         let id = uuid::Uuid::now_v7();
         let new = NewEvaluation {
             id,
-            project: format!("project-{}", i % 7),
-            teacher,
-            students: vec![teacher],
-            dataset: set,
-            request: serde_json::to_value(proctor::engine::settings::Settings::default()).unwrap(),
-            tags: serde_json::Map::new(),
+            request: AppliedRequest {
+                project: format!("project-{}", i % 7),
+                teacher,
+                students: vec![teacher],
+                dataset: set,
+                settings: proctor::engine::settings::Settings::default(),
+                tags: Default::default(),
+            },
             created_at: time::OffsetDateTime::now_utc(),
         };
         store.create_evaluation(&new).await.unwrap();

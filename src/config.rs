@@ -27,9 +27,15 @@ pub struct ServeArgs {
     /// Address-space limit per evaluation (and per upload check), in MiB; 0 for none.
     #[arg(long, env = "PROCTOR_EVAL_MEMORY", default_value_t = 4096)]
     pub eval_memory: u64,
-    /// Models run at once in an offline pass; 0 means one per logical core.
-    #[arg(long, env = "PROCTOR_OFFLINE_THREADS", default_value_t = 0)]
-    pub offline_threads: usize,
+    /// Models run at once in an evaluation's bulk pass; 0 means one per logical core.
+    #[arg(long, env = "PROCTOR_BULK_THREADS", default_value_t = 0)]
+    pub bulk_threads: usize,
+    /// Upload and creation checks that may run at once, each in its own process.
+    #[arg(long, env = "PROCTOR_CHECK_SLOTS", default_value_t = 2)]
+    pub check_slots: usize,
+    /// Checks that may wait for a slot; past that, requests are answered 503.
+    #[arg(long, env = "PROCTOR_CHECK_WAITING", default_value_t = 16)]
+    pub check_waiting: usize,
 }
 
 impl ServeArgs {

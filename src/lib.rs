@@ -2,9 +2,9 @@
 //! keeps every evaluation, and answers go or no-go against a team's gates.
 //!
 //! The data's path: `http` takes uploads and requests; `service` decides;
-//! `store` keeps rows and files; `queue` runs each evaluation in a child
-//! process; `engine` runs the models and computes the figures; `report`
-//! is the JSON shape that goes back out.
+//! `store` keeps rows and files; `queue` hands each evaluation to a worker;
+//! `sandbox` runs the engine in a child process; `engine` runs the models
+//! and computes the figures; `report` is the JSON shape that goes back out.
 
 /// `proctor submit` and `proctor demo`: the client side.
 pub mod cli;
@@ -18,10 +18,12 @@ pub mod error;
 pub mod http;
 /// RFC 9457 problem objects.
 pub mod problem;
-/// The durable queue, its workers and the engine's child process.
+/// The durable queue and its workers.
 pub mod queue;
 /// The JSON shape of a report.
 pub mod report;
+/// The engine's child process: typed entry points, limits, check slots.
+pub mod sandbox;
 /// Starting and stopping the service.
 pub mod server;
 /// Uploads and evaluations between the HTTP edge and the store.

@@ -56,6 +56,6 @@ fn main() -> anyhow::Result<()> {
         Command::Demo(args) => {
             std::process::exit(runtime()?.block_on(proctor::cli::demo::run(&args))?)
         }
-        Command::Child => std::process::exit(proctor::queue::task::run_from_stdin()),
+        Command::Child => std::process::exit(proctor::sandbox::entry::run_from_stdin()),
     }
 }

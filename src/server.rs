@@ -7,10 +7,14 @@ use tokio::task::JoinHandle;
 use tokio_util::sync::CancellationToken;
 
 use crate::config::ServeArgs;
-use crate::queue::child::Limits;
-use crate::queue::{Queue, QueueConfig};
+use crate::engine::Options;
+use crate::queue::Workers;
+use crate::sandbox::{Hold, Limits, Sandbox, SandboxConfig};
 use crate::service::{App, ServiceConfig};
 use crate::store::Store;
+
+/// The wall-time limit of one check (an upload's inspection, a preflight).
+const CHECK_TIME: std::time::Duration = std::time::Duration::from_secs(300);
 
 /// A started service: its address, and a way to stop it cleanly.
 pub struct Running {
@@ -25,21 +29,33 @@ pub async fn start(args: &ServeArgs) -> anyhow::Result<Running> {
     let store = Store::open(&args.database_url(), &args.data_dir)
         .await
         .context("opening the store")?;
-    let config = QueueConfig {
-        exe: std::env::current_exe().context("finding this program")?,
-        limits: Limits {
-            memory_bytes: args.eval_memory_bytes(),
-            wall_time: args.eval_timeout(),
-        },
-        workers: args.workers,
-        offline_threads: args.offline_threads,
+    let limits = Limits {
+        memory_bytes: args.eval_memory_bytes(),
+        wall_time: args.eval_timeout(),
     };
-    let queue = Queue::start(store.clone(), config)
+    let sandbox = Sandbox::new(SandboxConfig {
+        exe: std::env::current_exe().context("finding this program")?,
+        check_limits: Limits {
+            wall_time: limits.wall_time.min(CHECK_TIME),
+            ..limits.clone()
+        },
+        limits,
+        check_slots: args.check_slots,
+        check_waiting: args.check_waiting,
+        cpu_lock: store.blobs.cpu_lock_path(),
+        options: Options {
+            teacher_cache: Some(store.blobs.teacher_scores_dir()),
+            bulk_threads: args.bulk_threads,
+        },
+        hold: Hold::from_env(&args.data_dir),
+    });
+    let workers = Workers::start(store.clone(), sandbox.clone(), args.workers)
         .await
-        .context("starting the queue")?;
+        .context("starting the workers")?;
     let app = App {
         store: store.clone(),
-        queue: queue.clone(),
+        sandbox,
+        workers: workers.clone(),
         config: ServiceConfig {
             max_upload_bytes: args.max_upload_bytes,
         },
@@ -57,7 +73,7 @@ pub async fn start(args: &ServeArgs) -> anyhow::Result<Running> {
             .await
             .context("serving HTTP")?;
         tracing::info!("stopping: running evaluations go back to the queue");
-        queue.shutdown().await;
+        workers.shutdown().await;
         store.close().await;
         Ok(())
     });

@@ -1,13 +1,20 @@
 //! A typed client of the HTTP contract (api.md), for `proctor submit` and
-//! `proctor demo`. Files are hashed locally first, so a file the server
+//! `proctor demo`: it sends and reads the crate's own request, record and
+//! report types. Files are hashed locally first, so a file the server
 //! already holds (a teacher CI submits on every commit) is never sent again.
 
 use std::path::Path;
 use std::time::Duration;
 
-use serde_json::Value;
+use serde::de::DeserializeOwned;
 use sha2::{Digest, Sha256};
 use tokio::io::AsyncReadExt;
+use uuid::Uuid;
+
+use crate::problem::Problem;
+use crate::report::Report;
+use crate::service::EvaluationRequest;
+use crate::store::{DatasetRecord, EvaluationRecord, ModelRecord, Page};
 
 /// What went wrong, sorted by who can fix it (it decides the exit code).
 #[derive(Debug, thiserror::Error)]
@@ -20,22 +27,6 @@ pub enum ClientError {
     Server(String),
 }
 
-/// Which collection an upload goes to.
-#[derive(Debug, Clone, Copy)]
-pub enum Upload {
-    Model,
-    Dataset,
-}
-
-impl Upload {
-    fn path(self) -> &'static str {
-        match self {
-            Upload::Model => "/v1/models",
-            Upload::Dataset => "/v1/datasets",
-        }
-    }
-}
-
 pub struct Client {
     base: String,
     http: reqwest::Client,
@@ -45,25 +36,30 @@ fn network(e: reqwest::Error) -> ClientError {
     ClientError::Server(format!("cannot reach the server: {e}"))
 }
 
-/// Turns a non-success answer into an error carrying its problem detail.
-async fn checked(res: reqwest::Response) -> Result<Value, ClientError> {
+/// The body of a successful answer, or an error carrying its problem detail.
+async fn checked(res: reqwest::Response) -> Result<String, ClientError> {
     let status = res.status();
     let text = res.text().await.map_err(network)?;
-    let body: Value = serde_json::from_str(&text).unwrap_or(Value::Null);
     if status.is_success() {
-        return Ok(body);
+        return Ok(text);
     }
-    let detail = body["detail"].as_str().unwrap_or(text.as_str()).to_string();
-    let field = body["field"]
-        .as_str()
-        .map(|f| format!(" (field {f})"))
-        .unwrap_or_default();
-    let message = format!("server answered {}: {detail}{field}", status.as_u16());
+    let message = match serde_json::from_str::<Problem>(&text) {
+        Ok(p) => {
+            let field = p.field.map(|f| format!(" (field {f})")).unwrap_or_default();
+            format!("server answered {}: {}{field}", status.as_u16(), p.detail)
+        }
+        Err(_) => format!("server answered {}: {}", status.as_u16(), text.trim()),
+    };
     if status.is_client_error() {
         Err(ClientError::Input(message))
     } else {
         Err(ClientError::Server(message))
     }
+}
+
+fn parsed<T: DeserializeOwned>(text: &str, what: &str) -> Result<T, ClientError> {
+    serde_json::from_str(text)
+        .map_err(|e| ClientError::Server(format!("the server's {what} does not parse: {e}")))
 }
 
 pub async fn sha256_of(path: &Path) -> std::io::Result<String> {
@@ -80,12 +76,32 @@ pub async fn sha256_of(path: &Path) -> std::io::Result<String> {
     Ok(hex::encode(hasher.finalize()))
 }
 
+/// A collection of uploads: models or evaluation sets.
+pub trait Stored: DeserializeOwned {
+    const PATH: &'static str;
+    fn id(&self) -> Uuid;
+}
+
+impl Stored for ModelRecord {
+    const PATH: &'static str = "/v1/models";
+    fn id(&self) -> Uuid {
+        self.id
+    }
+}
+
+impl Stored for DatasetRecord {
+    const PATH: &'static str = "/v1/datasets";
+    fn id(&self) -> Uuid {
+        self.id
+    }
+}
+
 impl Client {
     pub fn new(base: &str) -> Client {
         let http = reqwest::Client::builder()
             .connect_timeout(Duration::from_secs(10))
             .build()
-            .expect("a client with default TLS-free settings builds");
+            .expect("a client with default settings builds");
         Client {
             base: base.trim_end_matches('/').to_string(),
             http,
@@ -96,7 +112,7 @@ impl Client {
         format!("{}{path}", self.base)
     }
 
-    pub async fn get(&self, path: &str) -> Result<Value, ClientError> {
+    async fn get_text(&self, path: &str) -> Result<String, ClientError> {
         checked(
             self.http
                 .get(self.url(path))
@@ -107,21 +123,17 @@ impl Client {
         .await
     }
 
-    /// The id of a stored file with this content, if the server has one.
-    pub async fn find(&self, kind: Upload, sha256: &str) -> Result<Option<String>, ClientError> {
-        let page = self
-            .get(&format!("{}?sha256={sha256}", kind.path()))
+    /// The stored record with this content, if the server has one.
+    pub async fn find<T: Stored>(&self, sha256: &str) -> Result<Option<T>, ClientError> {
+        let text = self
+            .get_text(&format!("{}?sha256={sha256}", T::PATH))
             .await?;
-        Ok(page["items"][0]["id"].as_str().map(str::to_string))
+        let page: Page<T> = parsed(&text, "list")?;
+        Ok(page.items.into_iter().next())
     }
 
     /// Streams a file to the server and returns the stored record.
-    pub async fn upload(
-        &self,
-        kind: Upload,
-        path: &Path,
-        name: &str,
-    ) -> Result<Value, ClientError> {
+    pub async fn upload<T: Stored>(&self, path: &Path, name: &str) -> Result<T, ClientError> {
         let file = tokio::fs::File::open(path)
             .await
             .map_err(|e| ClientError::Input(format!("cannot read {}: {e}", path.display())))?;
@@ -130,35 +142,37 @@ impl Client {
             reqwest::Body::wrap_stream(tokio_util::io::ReaderStream::with_capacity(file, 1 << 18));
         let mut req = self
             .http
-            .post(self.url(kind.path()))
+            .post(self.url(T::PATH))
             .query(&[("name", name)])
             .header("content-type", "application/octet-stream")
             .body(body);
         if let Some(len) = len {
             req = req.header("content-length", len);
         }
-        checked(req.send().await.map_err(network)?).await
+        let text = checked(req.send().await.map_err(network)?).await?;
+        parsed(&text, "upload answer")
     }
 
-    /// The id for a file: found by its hash, or uploaded.
-    pub async fn ensure(&self, kind: Upload, path: &Path) -> Result<(String, bool), ClientError> {
+    /// The id for a file: found by its hash, or uploaded. The flag says
+    /// whether it was uploaded.
+    pub async fn ensure<T: Stored>(&self, path: &Path) -> Result<(Uuid, bool), ClientError> {
         let sha = sha256_of(path)
             .await
             .map_err(|e| ClientError::Input(format!("cannot read {}: {e}", path.display())))?;
-        if let Some(id) = self.find(kind, &sha).await? {
-            return Ok((id, false));
+        if let Some(found) = self.find::<T>(&sha).await? {
+            return Ok((found.id(), false));
         }
         let name = path
             .file_stem()
             .map_or("upload".into(), |s| s.to_string_lossy().into_owned());
-        let record = self.upload(kind, path, &name).await?;
-        let id = record["id"]
-            .as_str()
-            .ok_or_else(|| ClientError::Server("upload answer has no id".into()))?;
-        Ok((id.to_string(), true))
+        let record: T = self.upload(path, &name).await?;
+        Ok((record.id(), true))
     }
 
-    pub async fn create_evaluation(&self, body: &Value) -> Result<Value, ClientError> {
+    pub async fn create_evaluation(
+        &self,
+        body: &EvaluationRequest,
+    ) -> Result<EvaluationRecord, ClientError> {
         let res = self
             .http
             .post(self.url("/v1/evaluations"))
@@ -166,10 +180,20 @@ impl Client {
             .send()
             .await
             .map_err(network)?;
-        checked(res).await
+        parsed(&checked(res).await?, "evaluation")
     }
 
-    pub async fn evaluation(&self, id: &str) -> Result<Value, ClientError> {
-        self.get(&format!("/v1/evaluations/{id}")).await
+    pub async fn evaluation(&self, id: Uuid) -> Result<EvaluationRecord, ClientError> {
+        let text = self.get_text(&format!("/v1/evaluations/{id}")).await?;
+        parsed(&text, "evaluation")
+    }
+
+    /// The report as the server sent it (for `--json`), and read.
+    pub async fn report(&self, id: Uuid) -> Result<(String, Report), ClientError> {
+        let text = self
+            .get_text(&format!("/v1/evaluations/{id}/report"))
+            .await?;
+        let report = parsed(&text, "report")?;
+        Ok((text, report))
     }
 }

@@ -73,7 +73,9 @@ pub async fn run(args: &DemoArgs) -> anyhow::Result<i32> {
         workers: 1,
         eval_timeout: 3600,
         eval_memory: 4096,
-        offline_threads: 0,
+        bulk_threads: 0,
+        check_slots: 2,
+        check_waiting: 16,
     };
     let running = server::start(&serve).await?;
     let base = format!("http://{}", running.addr);

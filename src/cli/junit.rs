@@ -41,7 +41,7 @@ pub fn junit(r: &Report) -> String {
             if k.passed {
                 out += &format!(
                     "    <testcase classname=\"{class}\" name=\"{}\"/>\n",
-                    escape(&k.gate)
+                    escape(k.gate.as_str())
                 );
             } else {
                 let why = k.reason.clone().unwrap_or_else(|| {
@@ -52,7 +52,7 @@ pub fn junit(r: &Report) -> String {
                     k.threshold,
                     num(k.judged),
                     num(k.estimate),
-                    gate = escape(&k.gate),
+                    gate = escape(k.gate.as_str()),
                     msg = escape(&why),
                 );
             }

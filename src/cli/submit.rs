@@ -6,11 +6,16 @@ use std::io::IsTerminal;
 use std::path::{Path, PathBuf};
 use std::time::Duration;
 
-use serde_json::{Map, Value, json};
+use serde_json::Value;
+use uuid::Uuid;
 
-use super::client::{Client, ClientError, Upload};
+use super::client::{Client, ClientError, Stored};
 use super::{junit, render};
+use crate::engine::gates::{GateName, Gates};
+use crate::engine::settings::RankBy;
 use crate::report::{Report, Verdict};
+use crate::service::EvaluationRequest;
+use crate::store::{DatasetRecord, EvaluationRecord, ModelRecord, Status};
 
 /// Exit codes, documented in `--help` and the README.
 pub const EXIT_GO: i32 = 0;
@@ -100,22 +105,16 @@ fn pair(s: &str, what: &str) -> Result<(String, String), Exit> {
         .ok_or_else(|| input(format!("{what} '{s}' must be NAME=VALUE")))
 }
 
-/// The gates object: the file's, then each --gate over it.
-fn gates(args: &SubmitArgs) -> Result<Map<String, Value>, Exit> {
+/// The gates: the file's, then each --gate over it. Checked here, before
+/// any file is hashed, so that a typo fails at once.
+fn gates(args: &SubmitArgs) -> Result<Gates, Exit> {
     let mut gates = match &args.gates {
-        None => Map::new(),
+        None => Gates::default(),
         Some(path) => {
             let text = std::fs::read_to_string(path)
                 .map_err(|e| input(format!("cannot read {}: {e}", path.display())))?;
-            match serde_json::from_str::<Value>(&text) {
-                Ok(Value::Object(m)) => m,
-                _ => {
-                    return Err(input(format!(
-                        "{} must hold a JSON object of gates",
-                        path.display()
-                    )));
-                }
-            }
+            serde_json::from_str::<Gates>(&text)
+                .map_err(|e| input(format!("{}: {e}", path.display())))?
         }
     };
     for g in &args.gate {
@@ -123,16 +122,37 @@ fn gates(args: &SubmitArgs) -> Result<Map<String, Value>, Exit> {
         let v: f64 = value
             .parse()
             .map_err(|_| input(format!("--gate {name} needs a number, not '{value}'")))?;
-        gates.insert(name, json!(v));
+        if name == "confidence" {
+            gates.confidence = Some(v);
+            continue;
+        }
+        let gate = GateName::parse(&name).ok_or_else(|| {
+            input(format!(
+                "unknown gate '{name}'; known gates: {}",
+                GateName::all_names()
+            ))
+        })?;
+        gates.set(gate, v);
     }
     Ok(gates)
 }
 
+fn rank_by(args: &SubmitArgs) -> Result<RankBy, Exit> {
+    match &args.rank_by {
+        None => Ok(RankBy::default()),
+        Some(r) => serde_json::from_value(Value::String(r.clone())).map_err(|_| {
+            input(format!(
+                "--rank-by must be agreement, kl, top1, p50_ms or bytes, not '{r}'"
+            ))
+        }),
+    }
+}
+
 /// A file is uploaded (unless the server has it); anything else must be an id.
-async fn resolve(client: &Client, kind: Upload, given: &str) -> Result<String, Exit> {
+async fn resolve<T: Stored>(client: &Client, given: &str) -> Result<Uuid, Exit> {
     let path = Path::new(given);
     if path.is_file() {
-        let (id, uploaded) = client.ensure(kind, path).await?;
+        let (id, uploaded) = client.ensure::<T>(path).await?;
         let how = if uploaded {
             "uploaded"
         } else {
@@ -141,67 +161,48 @@ async fn resolve(client: &Client, kind: Upload, given: &str) -> Result<String, E
         eprintln!("{given}: {how} as {id}");
         return Ok(id);
     }
-    if uuid::Uuid::parse_str(given).is_ok() {
-        return Ok(given.to_string());
-    }
-    Err(input(format!(
-        "'{given}' is neither a file nor a stored id"
-    )))
+    Uuid::parse_str(given)
+        .map_err(|_| input(format!("'{given}' is neither a file nor a stored id")))
 }
 
-/// The request body from the arguments (ids already resolved).
-pub fn request_body(
-    args: &SubmitArgs,
-    teacher: String,
-    students: Vec<String>,
-    data: String,
-) -> Result<Value, Exit> {
-    let mut body =
-        json!({"teacher": teacher, "students": students, "dataset": data, "gates": gates(args)?});
-    let mut tags = Map::new();
+/// Everything of the request that the arguments alone decide, checked
+/// before any file is read.
+fn settings_of(args: &SubmitArgs) -> Result<EvaluationRequest, Exit> {
+    let nil = Uuid::nil();
+    let mut body = EvaluationRequest::new(nil, vec![], nil);
+    body.gates = gates(args)?;
+    body.rank_by = rank_by(args)?;
     for t in &args.tags {
         let (k, v) = pair(t, "--tag")?;
-        tags.insert(k, json!(v));
+        body.tags.insert(k, v);
     }
-    body["tags"] = Value::Object(tags);
-    if let Some(t) = args.temperature {
-        body["temperature"] = json!(t);
-    }
-    if let Some(a) = args.alpha {
-        body["alpha"] = json!(a);
-    }
-    if let Some(r) = &args.rank_by {
-        body["rank_by"] = json!(r);
-    }
+    body.temperature = args.temperature;
+    body.alpha = args.alpha;
     if let Some(p) = &args.project {
-        body["project"] = json!(p);
+        body.project = p.clone();
     }
     Ok(body)
 }
 
 /// Waits for the evaluation to finish, drawing its progress on stderr.
-pub async fn wait(client: &Client, id: &str) -> Result<Value, Exit> {
+pub async fn wait(client: &Client, id: Uuid) -> Result<EvaluationRecord, Exit> {
     let live = std::io::stderr().is_terminal();
     let mut last_line = String::new();
     loop {
         let e = client.evaluation(id).await?;
-        let status = e["status"].as_str().unwrap_or("?").to_string();
-        let stage = e["progress"]["stage"].as_str().unwrap_or("waiting");
-        let (done, total) = (
-            e["progress"]["done"].as_u64().unwrap_or(0),
-            e["progress"]["total"].as_u64().unwrap_or(0),
-        );
+        let (stage, done, total) = (e.progress.stage.as_str(), e.progress.done, e.progress.total);
         let pct = (100 * done).checked_div(total).unwrap_or(0);
         let line = if live {
             let filled = (pct / 5) as usize;
             format!(
-                "{status:>9} {stage:<8} [{}{}] {done}/{total}",
+                "{:>9} {stage:<8} [{}{}] {done}/{total}",
+                e.status.as_str(),
                 "#".repeat(filled),
                 ".".repeat(20 - filled)
             )
         } else {
             // Plain lines: one per stage and per tenth of it.
-            format!("{status} {stage} {}%", pct / 10 * 10)
+            format!("{} {stage} {}%", e.status.as_str(), pct / 10 * 10)
         };
         if line != last_line {
             if live {
@@ -211,7 +212,7 @@ pub async fn wait(client: &Client, id: &str) -> Result<Value, Exit> {
             }
             last_line = line;
         }
-        if matches!(status.as_str(), "succeeded" | "failed" | "canceled") {
+        if e.status.is_finished() {
             if live {
                 eprintln!();
             }
@@ -222,14 +223,17 @@ pub async fn wait(client: &Client, id: &str) -> Result<Value, Exit> {
 }
 
 /// Prints the table and writes the requested files.
-pub fn publish(args: &SubmitArgs, report: &Report, raw: &Value) -> Result<(), Exit> {
+pub fn publish(args: &SubmitArgs, report: &Report, raw: &str) -> Result<(), Exit> {
     print!("{}", render::table(report));
     let write = |path: &Path, text: String| {
         std::fs::write(path, text)
             .map_err(|e| input(format!("cannot write {}: {e}", path.display())))
     };
     if let Some(p) = &args.json {
-        write(p, serde_json::to_string_pretty(raw).unwrap_or_default())?;
+        let pretty = serde_json::from_str::<Value>(raw)
+            .and_then(|v| serde_json::to_string_pretty(&v))
+            .unwrap_or_else(|_| raw.to_string());
+        write(p, pretty)?;
     }
     if let Some(p) = &args.junit {
         write(p, junit::junit(report))?;
@@ -247,30 +251,28 @@ pub fn publish(args: &SubmitArgs, report: &Report, raw: &Value) -> Result<(), Ex
 
 /// The whole submission; returns the exit code.
 pub async fn run(args: &SubmitArgs) -> Result<i32, Exit> {
+    let mut body = settings_of(args)?;
     let client = Client::new(&args.server);
-    let teacher = resolve(&client, Upload::Model, &args.teacher).await?;
-    let mut students = Vec::with_capacity(args.students.len());
+    body.teacher = resolve::<ModelRecord>(&client, &args.teacher).await?;
     for s in &args.students {
-        students.push(resolve(&client, Upload::Model, s).await?);
+        body.students
+            .push(resolve::<ModelRecord>(&client, s).await?);
     }
-    let data = resolve(&client, Upload::Dataset, &args.data).await?;
-    let body = request_body(args, teacher, students, data)?;
+    body.dataset = resolve::<DatasetRecord>(&client, &args.data).await?;
     let created = client.create_evaluation(&body).await?;
-    let id = created["id"].as_str().ok_or_else(|| Exit {
-        code: EXIT_SERVER,
-        message: "no id in the answer".into(),
-    })?;
+    let id = created.id;
     if args.no_wait {
         println!("{id}");
         return Ok(EXIT_GO);
     }
     eprintln!("evaluation {id} queued");
     let done = wait(&client, id).await?;
-    match done["status"].as_str() {
-        Some("succeeded") => {}
-        Some("failed") => {
-            let status = done["error"]["status"].as_u64().unwrap_or(500);
-            let detail = done["error"]["detail"].as_str().unwrap_or("no detail");
+    match done.status {
+        Status::Succeeded => {}
+        Status::Failed => {
+            let (status, detail) = done
+                .error
+                .map_or((500, "no detail".to_string()), |p| (p.status, p.detail));
             let code = if status == 422 {
                 EXIT_INPUT
             } else {
@@ -284,15 +286,11 @@ pub async fn run(args: &SubmitArgs) -> Result<i32, Exit> {
         other => {
             return Err(Exit {
                 code: EXIT_SERVER,
-                message: format!("the evaluation ended {}", other.unwrap_or("?")),
+                message: format!("the evaluation ended {}", other.as_str()),
             });
         }
     }
-    let raw = client.get(&format!("/v1/evaluations/{id}/report")).await?;
-    let report: Report = serde_json::from_value(raw.clone()).map_err(|e| Exit {
-        code: EXIT_SERVER,
-        message: format!("the report does not parse: {e}"),
-    })?;
+    let (raw, report) = client.report(id).await?;
     publish(args, &report, &raw)?;
     Ok(match report.verdict {
         Verdict::Go => EXIT_GO,

@@ -16,7 +16,7 @@ use std::time::Duration;
 use sha2::{Digest, Sha256};
 
 use super::error::{EngineError, EngineResult};
-use super::logits::Logits;
+use super::logits::Scores;
 use super::npy;
 
 pub struct TeacherCache {
@@ -26,7 +26,7 @@ pub struct TeacherCache {
 /// A cached entry: the scores, and the engine time at the batch size asked
 /// for if that batch size was ever run.
 pub struct Cached {
-    pub raw: Logits,
+    pub raw: Scores,
     pub engine_time: Option<Duration>,
 }
 
@@ -63,7 +63,7 @@ impl TeacherCache {
         set_sha: &str,
         output: Option<&str>,
         batch: usize,
-        raw: &Logits,
+        raw: &Scores,
         engine_time: Duration,
     ) -> EngineResult<()> {
         fs::create_dir_all(&self.dir).map_err(EngineError::io("creating the teacher cache"))?;
@@ -98,7 +98,7 @@ fn write_atomic(path: &Path, bytes: &[u8]) -> EngineResult<()> {
 }
 
 /// An NPY float64 [n, c] array, readable with `numpy.load`.
-fn f64_matrix_bytes(m: &Logits) -> Vec<u8> {
+fn f64_matrix_bytes(m: &Scores) -> Vec<u8> {
     let mut out = npy::header_bytes("<f8", &[m.n, m.c]);
     out.reserve(m.data.len() * 8);
     for v in &m.data {
@@ -107,9 +107,9 @@ fn f64_matrix_bytes(m: &Logits) -> Vec<u8> {
     out
 }
 
-fn read_f64_matrix(path: &Path) -> EngineResult<Logits> {
+fn read_f64_matrix(path: &Path) -> EngineResult<Scores> {
     match npy::read_f64(path)? {
-        (shape, data) if shape.len() == 2 && shape[1] > 0 => Ok(Logits::from_rows(shape[1], data)),
+        (shape, data) if shape.len() == 2 && shape[1] > 0 => Ok(Scores::from_rows(shape[1], data)),
         _ => Err(EngineError::InvalidDataset(
             "malformed teacher cache entry".into(),
         )),
@@ -124,7 +124,7 @@ mod tests {
     fn scores_survive_a_round_trip_bit_for_bit() {
         let dir = tempfile::tempdir().unwrap();
         let cache = TeacherCache::new(dir.path());
-        let raw = Logits::from_rows(3, vec![0.1, -2.5, 1e-300, 7.0, f64::MAX, -0.0]);
+        let raw = Scores::from_rows(3, vec![0.1, -2.5, 1e-300, 7.0, f64::MAX, -0.0]);
         cache
             .put("aa", "bb", None, 32, &raw, Duration::from_millis(5))
             .unwrap();

@@ -10,10 +10,17 @@ use flate2::read::DeflateDecoder;
 use serde::{Deserialize, Serialize};
 
 use super::error::{EngineError, EngineResult};
+use super::fit::LargestLabel;
 use super::npy::{self, Dtype, Header, Scalar};
 
 /// The array that holds labels in an `.npz`; it never feeds a model input.
 pub const LABELS: &str = "labels";
+
+/// Whether an array of this name may feed a model input (the set's own
+/// arrays, such as the labels, never do).
+pub fn is_model_input(name: Option<&str>) -> bool {
+    name != Some(LABELS)
+}
 
 /// One array as a report or an API answer describes it.
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
@@ -30,6 +37,9 @@ pub struct DatasetInfo {
     pub samples: usize,
     pub arrays: Vec<ArrayInfo>,
     pub has_labels: bool,
+    /// Recorded so that a new evaluation's labels are checked against the
+    /// models' class count without reading the set again.
+    pub largest_label: Option<LargestLabel>,
 }
 
 /// Where one array's bytes live inside the file.
@@ -180,25 +190,28 @@ impl EvalSet {
                 })
                 .collect(),
             has_labels: self.labels.is_some(),
+            largest_label: self.labels.as_deref().and_then(largest_label),
         }
-    }
-
-    /// The arrays that may feed model inputs (all but `labels`).
-    pub(crate) fn feature_members(&self) -> impl Iterator<Item = (usize, &Member)> {
-        self.members
-            .iter()
-            .enumerate()
-            .filter(|(_, m)| m.name.as_deref() != Some(LABELS))
-    }
-
-    pub(crate) fn member(&self, ix: usize) -> &Member {
-        &self.members[ix]
     }
 
     /// A fresh reader positioned at the first sample of member `ix`.
     pub(crate) fn stream(&self, ix: usize) -> EngineResult<RowStream> {
         open_stream(&self.path, &self.members[ix])
     }
+}
+
+/// The largest label and the first sample holding it.
+fn largest_label(labels: &[i64]) -> Option<LargestLabel> {
+    let mut best: Option<LargestLabel> = None;
+    for (i, &value) in labels.iter().enumerate() {
+        if best.is_none_or(|b| value > b.value) {
+            best = Some(LargestLabel {
+                value,
+                sample: i as u64,
+            });
+        }
+    }
+    best
 }
 
 fn open_stream(path: &Path, m: &Member) -> EngineResult<RowStream> {

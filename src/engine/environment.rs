@@ -5,10 +5,10 @@ use serde::{Deserialize, Serialize};
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Threads {
-    /// Threads running models at once in the offline pass.
-    pub offline: usize,
-    /// Threads in the latency stage (always 1: single-stream).
-    pub latency: usize,
+    /// Threads running models at once in the bulk pass.
+    pub bulk: usize,
+    /// Threads in the timed rounds (always 1: one sample, one model at a time).
+    pub timing: usize,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -34,13 +34,13 @@ pub fn logical_cores() -> usize {
 }
 
 impl Environment {
-    pub fn current(offline_threads: usize) -> Environment {
+    pub fn current(bulk_threads: usize) -> Environment {
         Environment {
             cpu: cpu_model(),
             logical_cores: logical_cores(),
             threads: Threads {
-                offline: offline_threads,
-                latency: 1,
+                bulk: bulk_threads,
+                timing: 1,
             },
             engine: EngineVersion {
                 name: "tract".into(),

@@ -26,13 +26,10 @@ pub enum EngineError {
     #[error("{0}")]
     BadOutput(String),
 
-    /// A setting is out of its limits.
+    /// A request field that cannot be used: a setting out of its limits, an
+    /// output a model lacks. It names the field.
     #[error(transparent)]
     Settings(#[from] super::settings::SettingsError),
-
-    /// The evaluation's cancellation flag was raised.
-    #[error("the evaluation was canceled")]
-    Canceled,
 
     /// Reading or writing a file the engine owns failed.
     #[error("{context}: {source}")]

@@ -1,216 +1,59 @@
-//! One evaluation from start to report: prepare (load, bind, check), the
-//! offline pass, scoring, single-stream latency, then gates and ranking.
+//! One evaluation from start to report: load and fit the models, the bulk
+//! pass (scores and throughput), the timed rounds (latency), then scoring,
+//! gates and ranking. The bulk pass shares the CPU with other evaluations;
+//! the timed rounds hold it alone; scoring needs no lock.
 
-use std::collections::HashMap;
-use std::path::PathBuf;
 use std::sync::Mutex;
 use std::sync::atomic::{AtomicBool, AtomicU64, AtomicUsize, Ordering};
+use std::time::{Duration, Instant};
 
-use serde::{Deserialize, Serialize};
-use time::OffsetDateTime;
 use tract_onnx::prelude::*;
-use uuid::Uuid;
 
+use super::assemble::{Figures, assemble};
+use super::bulk::{self, BulkScores};
 use super::cache::TeacherCache;
 use super::dataset::EvalSet;
-use super::environment::Environment;
 use super::error::{EngineError, EngineResult};
-use super::feed::{Feed, bind};
-use super::gates::judge;
+use super::feed::Feed;
+use super::job::{Hooks, Job, Options, Stage};
 use super::latency::{self, Entry};
-use super::logits::{Logits, OutputKind, OutputKindChoice, to_logits};
-use super::metrics::accuracy::{
-    Accuracy, StudentAccuracy, StudentInputs, accuracy, student_accuracy,
-};
-use super::metrics::fidelity::{Fidelity, fidelity};
+use super::logits::{OutputKindChoice, to_logits};
+use super::metrics::accuracy::{StudentInputs, accuracy, student_accuracy};
+use super::metrics::fidelity::fidelity;
 use super::model::Model;
-use super::offline::{self, Offline, Prepared};
-use super::ranking::{mark_pareto, rank, verdict};
-use super::settings::Settings;
-use crate::report::{
-    Candidate, DatasetSummary, ModelSummary, Report, ReportSettings, Size, StudentLatency,
-    TeacherEntry, TeacherSize,
-};
+use super::setup::{Prepared, Setup, prepare};
+use crate::report::Report;
 
-/// A stored model file, as the service hands it to the engine.
-#[derive(Debug, Clone, Serialize, Deserialize)]
-pub struct ModelRef {
-    pub id: Uuid,
-    pub name: String,
-    pub sha256: String,
-    pub bytes: u64,
-    pub path: PathBuf,
-}
-
-/// A stored evaluation set.
-#[derive(Debug, Clone, Serialize, Deserialize)]
-pub struct DatasetRef {
-    pub id: Uuid,
-    pub name: String,
-    pub sha256: String,
-    pub path: PathBuf,
-}
-
-/// Everything an evaluation needs; serializable so that a child process can
-/// receive it.
-#[derive(Debug, Clone, Serialize, Deserialize)]
-pub struct Job {
-    pub evaluation: Uuid,
-    pub project: String,
-    #[serde(with = "time::serde::rfc3339")]
-    pub created_at: OffsetDateTime,
-    pub teacher: ModelRef,
-    pub students: Vec<ModelRef>,
-    pub dataset: DatasetRef,
-    pub settings: Settings,
-}
-
-/// How the engine may use the machine.
-#[derive(Debug, Clone, Default)]
-pub struct Options {
-    pub teacher_cache: Option<PathBuf>,
-    /// Models run at once in the offline pass; 0 means one per logical core.
-    pub offline_threads: usize,
-}
-
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
-#[serde(rename_all = "lowercase")]
-pub enum Stage {
-    Loading,
-    Offline,
-    Scoring,
-    Warmup,
-    Latency,
-}
-
-/// How an evaluation shares the machine with others: offline passes may run
-/// side by side, but latency rounds must not share the CPU with anyone's
-/// inference. Each call holds until the lease is granted.
-pub trait CpuLease: Sync {
-    fn shared(&self) -> EngineResult<()>;
-    fn exclusive(&self) -> EngineResult<()>;
-}
-
-/// The lease of an evaluation that is alone on the machine.
-pub struct Alone;
-
-impl CpuLease for Alone {
-    fn shared(&self) -> EngineResult<()> {
-        Ok(())
-    }
-    fn exclusive(&self) -> EngineResult<()> {
-        Ok(())
-    }
-}
-
-/// Progress reports, the cancellation flag (checked between batches and
-/// rounds), and the machine lease.
-pub struct Hooks<'a> {
-    pub progress: &'a (dyn Fn(Stage, u64, u64) + Sync),
-    pub cancel: &'a AtomicBool,
-    pub cpu: &'a dyn CpuLease,
-}
-
-/// How the evaluation ran, beyond what the report says.
-#[derive(Debug, Clone, Default)]
-pub struct Timings {
-    /// The teacher's scores came from the cache; its offline pass did not run.
-    pub teacher_from_cache: bool,
-}
-
+/// What an evaluation produced: the report, and how it got there.
 pub struct Outcome {
     pub report: Report,
-    pub timings: Timings,
-}
-
-/// The models of an evaluation, loaded once per distinct file and bound to the set.
-pub struct Setup {
-    pub set: EvalSet,
-    models: Vec<Prepared>,
-    teacher: usize,
-    students: Vec<usize>,
-}
-
-fn labelled(name: &str, e: EngineError) -> EngineError {
-    match e {
-        EngineError::InvalidModel(m) => EngineError::InvalidModel(format!("model '{name}': {m}")),
-        EngineError::Mismatch(m) if !m.contains(name) => {
-            EngineError::Mismatch(format!("model '{name}': {m}"))
-        }
-        other => other,
-    }
-}
-
-/// Everything that can be checked before running: settings, every model
-/// loads, the set fits every model, teacher and students agree on C, labels
-/// fit C.
-pub fn prepare(job: &Job) -> EngineResult<Setup> {
-    let set = EvalSet::open(&job.dataset.path)?;
-    job.settings.check(set.labels().is_some())?;
-    let mut by_sha: HashMap<String, usize> = HashMap::new();
-    let mut models: Vec<Prepared> = Vec::new();
-    let mut index = |m: &ModelRef, models: &mut Vec<Prepared>| -> EngineResult<usize> {
-        if let Some(&ix) = by_sha.get(m.sha256.as_str()) {
-            return Ok(ix);
-        }
-        let model = Model::load(&m.path).map_err(|e| labelled(&m.name, e))?;
-        let output = model
-            .output_index(job.settings.output.as_deref())
-            .map_err(|e| labelled(&m.name, e))?;
-        let binding = bind(&model, &set, &m.name)?;
-        models.push(Prepared::new(m.name.clone(), model, binding, output)?);
-        by_sha.insert(m.sha256.clone(), models.len() - 1);
-        Ok(models.len() - 1)
-    };
-    let teacher = index(&job.teacher, &mut models)?;
-    let students = job
-        .students
-        .iter()
-        .map(|s| index(s, &mut models))
-        .collect::<EngineResult<Vec<_>>>()?;
-    let c = models[teacher].classes;
-    for (&ix, s) in students.iter().zip(&job.students) {
-        if models[ix].classes != c {
-            return Err(EngineError::Mismatch(format!(
-                "teacher '{}' scores {c} classes but student '{}' scores {}",
-                job.teacher.name, s.name, models[ix].classes
-            )));
-        }
-    }
-    if let Some(labels) = set.labels()
-        && let Some((i, y)) = labels
-            .iter()
-            .enumerate()
-            .find(|(_, y)| **y as u64 >= c as u64)
-    {
-        return Err(EngineError::Mismatch(format!(
-            "label {y} at sample {i} is outside [0, {c}): the models score {c} classes"
-        )));
-    }
-    Ok(Setup {
-        set,
-        models,
-        teacher,
-        students,
-    })
+    /// The teacher's scores came from the cache; its bulk pass did not run.
+    pub teacher_from_cache: bool,
+    /// Milliseconds of every timed run: one row per round, one column per
+    /// timed model (the teacher, then each student in request order).
+    pub rounds: Vec<Vec<f64>>,
+    /// Wall time of each stage the engine ran.
+    pub stage_times: Vec<(Stage, Duration)>,
 }
 
 pub fn evaluate(job: &Job, options: &Options, hooks: &Hooks<'_>) -> EngineResult<Outcome> {
+    let mut clock = StageClock::new();
     (hooks.progress)(Stage::Loading, 0, 1);
     let setup = prepare(job)?;
     (hooks.progress)(Stage::Loading, 1, 1);
-    let mut timings = Timings::default();
+    clock.lap(Stage::Loading);
     let n = setup.set.samples();
     let batch = job.settings.batch_size as usize;
-    let threads = match options.offline_threads {
+    let threads = match options.bulk_threads {
         0 => super::environment::logical_cores(),
         t => t,
     };
 
+    let teacher = &setup.models[setup.teacher];
     let cache = options.teacher_cache.as_ref().map(TeacherCache::new);
-    let teacher_batch = setup.models[setup.teacher].offline_batch(batch, n);
-    let output = job.settings.output.as_deref();
-    let cached = cache
+    let teacher_batch = teacher.bulk_batch(batch, n);
+    let output = Some(teacher.output_name.as_str());
+    let cached_teacher = cache
         .as_ref()
         .and_then(|c| {
             c.get(
@@ -220,17 +63,17 @@ pub fn evaluate(job: &Job, options: &Options, hooks: &Hooks<'_>) -> EngineResult
                 teacher_batch,
             )
         })
-        .filter(|hit| hit.raw.n == n && hit.raw.c == setup.models[setup.teacher].classes);
-    let cached_teacher = cached.and_then(|hit| {
-        hit.engine_time.map(|engine_time| Offline {
-            raw: hit.raw,
-            engine_time,
-        })
-    });
-    timings.teacher_from_cache = cached_teacher.is_some();
+        .filter(|hit| hit.raw.n == n && hit.raw.c == teacher.classes)
+        .and_then(|hit| {
+            hit.engine_time.map(|engine_time| BulkScores {
+                raw: hit.raw,
+                engine_time,
+            })
+        });
+    let teacher_from_cache = cached_teacher.is_some();
 
     hooks.cpu.shared()?;
-    let mut results = run_offline(&setup, batch, threads, cached_teacher.is_none(), hooks)?;
+    let mut results = run_bulk(&setup, batch, threads, !teacher_from_cache, hooks)?;
     if let Some(hit) = cached_teacher {
         results[setup.teacher] = Some(hit);
     } else if let (Some(cache), Some(r)) = (&cache, &results[setup.teacher]) {
@@ -243,37 +86,73 @@ pub fn evaluate(job: &Job, options: &Options, hooks: &Hooks<'_>) -> EngineResult
             r.engine_time,
         )?;
     }
-    let results: Vec<Offline> = results
+    let results: Vec<BulkScores> = results
         .into_iter()
         .map(|r| r.expect("every model ran or was cached"))
         .collect();
-
-    (hooks.progress)(Stage::Scoring, 0, job.students.len() as u64);
-    let scores = score(job, &setup, &results, hooks);
+    clock.lap(Stage::Bulk);
 
     hooks.cpu.exclusive()?;
-    let latencies = measure_latency(job, &setup, hooks)?;
+    let per_entry = measure_latency(job, &setup, hooks)?;
+    hooks.cpu.release()?;
+    clock.lap(Stage::Timing);
 
+    let scores = score(job, &setup, &results, hooks);
     let throughput = |ix: usize| n as f64 / results[ix].engine_time.as_secs_f64().max(1e-12);
     let report = assemble(
         job,
         &setup,
         scores,
-        &latencies,
+        &per_entry,
         throughput,
         threads.min(setup.models.len()),
     );
-    Ok(Outcome { report, timings })
+    clock.lap(Stage::Scoring);
+    Ok(Outcome {
+        report,
+        teacher_from_cache,
+        rounds: transpose(&per_entry),
+        stage_times: clock.laps,
+    })
+}
+
+/// Wall time per stage, measured as laps of one clock.
+struct StageClock {
+    since: Instant,
+    laps: Vec<(Stage, Duration)>,
+}
+
+impl StageClock {
+    fn new() -> Self {
+        StageClock {
+            since: Instant::now(),
+            laps: Vec::new(),
+        }
+    }
+
+    fn lap(&mut self, stage: Stage) {
+        let now = Instant::now();
+        self.laps.push((stage, now - self.since));
+        self.since = now;
+    }
+}
+
+/// Rows per entry to rows per round.
+fn transpose(per_entry: &[Vec<f64>]) -> Vec<Vec<f64>> {
+    let rounds = per_entry.first().map_or(0, Vec::len);
+    (0..rounds)
+        .map(|r| per_entry.iter().map(|e| e[r]).collect())
+        .collect()
 }
 
 /// Runs every model that needs it over the set, `threads` models at a time.
-fn run_offline(
+fn run_bulk(
     setup: &Setup,
     batch: usize,
     threads: usize,
     run_teacher: bool,
     hooks: &Hooks<'_>,
-) -> EngineResult<Vec<Option<Offline>>> {
+) -> EngineResult<Vec<Option<BulkScores>>> {
     let n = setup.set.samples() as u64;
     let todo: Vec<usize> = (0..setup.models.len())
         .filter(|&i| run_teacher || i != setup.teacher)
@@ -282,26 +161,20 @@ fn run_offline(
     let done = AtomicU64::new(0);
     let next = AtomicUsize::new(0);
     let failed = AtomicBool::new(false);
-    let results: Mutex<Vec<Option<EngineResult<Offline>>>> =
+    let results: Mutex<Vec<Option<EngineResult<Option<BulkScores>>>>> =
         Mutex::new((0..setup.models.len()).map(|_| None).collect());
-    (hooks.progress)(Stage::Offline, 0, total);
-    let stop = || failed.load(Ordering::Relaxed) || hooks.cancel.load(Ordering::Relaxed);
+    (hooks.progress)(Stage::Bulk, 0, total);
+    let stop = || failed.load(Ordering::Relaxed);
     let tick = |rows: u64| {
         let d = done.fetch_add(rows, Ordering::Relaxed) + rows;
-        (hooks.progress)(Stage::Offline, d, total);
+        (hooks.progress)(Stage::Bulk, d, total);
     };
     std::thread::scope(|scope| {
         for _ in 0..threads.clamp(1, todo.len().max(1)) {
             scope.spawn(|| {
                 while let Some(&ix) = todo.get(next.fetch_add(1, Ordering::Relaxed)) {
                     let m = &setup.models[ix];
-                    let r = offline::run(
-                        m,
-                        &setup.set,
-                        m.offline_batch(batch, n as usize),
-                        &stop,
-                        &tick,
-                    );
+                    let r = bulk::run(m, &setup.set, m.bulk_batch(batch, n as usize), &stop, &tick);
                     if r.is_err() {
                         failed.store(true, Ordering::Relaxed);
                     }
@@ -311,39 +184,19 @@ fn run_offline(
         }
     });
     let results = results.into_inner().unwrap_or_else(|p| p.into_inner());
-    if hooks.cancel.load(Ordering::Relaxed) {
-        return Err(EngineError::Canceled);
-    }
-    // The first real error, not a `Canceled` that another model's failure caused.
+    // The first error in model order; models stopped because of it have none.
     let mut out = Vec::with_capacity(results.len());
-    let mut first_err = None;
     for r in results {
-        match r {
-            Some(Ok(v)) => out.push(Some(v)),
-            Some(Err(EngineError::Canceled)) | None => out.push(None),
-            Some(Err(e)) => {
-                first_err.get_or_insert(e);
-                out.push(None);
-            }
-        }
+        out.push(r.transpose()?.flatten());
     }
-    match first_err {
-        Some(e) => Err(e),
-        None => Ok(out),
-    }
+    Ok(out)
 }
 
-struct Scores {
-    teacher_kind: OutputKind,
-    teacher_accuracy: Option<Accuracy>,
-    students: Vec<(OutputKind, Fidelity, Option<StudentAccuracy>)>,
-}
-
-fn score(job: &Job, setup: &Setup, results: &[Offline], hooks: &Hooks<'_>) -> Scores {
+fn score(job: &Job, setup: &Setup, results: &[BulkScores], hooks: &Hooks<'_>) -> Figures {
     let s = &job.settings;
-    let convert = |ix: usize, choice: OutputKindChoice| -> (Logits, OutputKind) {
-        to_logits(results[ix].raw.clone(), choice)
-    };
+    let total = setup.students.len() as u64;
+    (hooks.progress)(Stage::Scoring, 0, total);
+    let convert = |ix: usize, choice: OutputKindChoice| to_logits(results[ix].raw.clone(), choice);
     let (teacher, teacher_kind) = convert(setup.teacher, s.output_kind.teacher);
     let labels = setup.set.labels();
     let teacher_accuracy = labels.map(|y| accuracy(&teacher, y));
@@ -365,28 +218,29 @@ fn score(job: &Job, setup: &Setup, results: &[Offline], hooks: &Hooks<'_>) -> Sc
                     soft_cross_entropy: fid.soft_cross_entropy,
                 })
             });
-            (hooks.progress)(Stage::Scoring, done as u64 + 1, setup.students.len() as u64);
+            (hooks.progress)(Stage::Scoring, done as u64 + 1, total);
             (kind, fid, acc)
         })
         .collect();
-    Scores {
+    Figures {
         teacher_kind,
         teacher_accuracy,
         students,
     }
 }
 
-/// Samples cycled through in the latency rounds: enough to vary the input,
+/// Samples cycled through in the timed rounds: enough to vary the input,
 /// few enough to hold in memory whatever the set's size.
-const LATENCY_SAMPLES: usize = 32;
+const TIMING_SAMPLES: usize = 32;
 
-/// Timings per entry: the teacher first, then each student in request order.
+/// Milliseconds per timed entry (the teacher first, then each student in
+/// request order), in round order.
 fn measure_latency(job: &Job, setup: &Setup, hooks: &Hooks<'_>) -> EngineResult<Vec<Vec<f64>>> {
     let lat = job.settings.latency;
     let k = setup
         .set
         .samples()
-        .min(LATENCY_SAMPLES)
+        .min(TIMING_SAMPLES)
         .min(lat.iterations as usize)
         .max(1);
     let samples = setup
@@ -411,137 +265,37 @@ fn measure_latency(job: &Job, setup: &Setup, hooks: &Hooks<'_>) -> EngineResult<
             })
         })
         .collect::<EngineResult<Vec<_>>>()?;
-    (hooks.progress)(Stage::Warmup, 0, 1);
     let rounds = lat.iterations as u64;
+    (hooks.progress)(Stage::Timing, 0, rounds);
     let done = AtomicU64::new(0);
-    latency::measure(&entries, lat.warmup, lat.iterations, hooks.cancel, &|r| {
+    latency::measure(&entries, lat.warmup, lat.iterations, &|r| {
         let d = done.fetch_add(r, Ordering::Relaxed) + r;
-        (hooks.progress)(Stage::Latency, d, rounds);
+        (hooks.progress)(Stage::Timing, d, rounds);
     })
 }
 
-fn summary(m: &super::evaluate::ModelRef) -> ModelSummary {
-    ModelSummary {
-        id: m.id,
-        name: m.name.clone(),
-        sha256: m.sha256.clone(),
-    }
-}
-
-fn assemble(
-    job: &Job,
-    setup: &Setup,
-    scores: Scores,
-    latencies: &[Vec<f64>],
-    throughput: impl Fn(usize) -> f64,
-    offline_threads: usize,
-) -> Report {
-    let s = &job.settings;
-    let n = setup.set.samples() as u64;
-    let teacher_model = &setup.models[setup.teacher];
-    let teacher_size = TeacherSize {
-        bytes: job.teacher.bytes,
-        parameters: teacher_model.model.info.parameters,
-        macs: teacher_model
-            .model
-            .macs_per_sample(&teacher_model.binding.dims),
-    };
-    let teacher_latency = latency::summarize(&latencies[0], throughput(setup.teacher));
-    let mut candidates: Vec<Candidate> = job
-        .students
-        .iter()
-        .zip(&setup.students)
-        .zip(scores.students)
-        .zip(&latencies[1..])
-        .map(|(((student, &ix), (kind, fid, acc)), ms)| {
-            let m = &setup.models[ix];
-            let own = latency::summarize(ms, throughput(ix));
-            let parameters = m.model.info.parameters;
-            let mut c = Candidate {
-                rank: 0,
-                model: summary(student),
-                output_kind: kind,
-                fidelity: fid,
-                accuracy: acc,
-                size: Size {
-                    bytes: student.bytes,
-                    parameters,
-                    macs: m.model.macs_per_sample(&m.binding.dims),
-                    size_ratio: student.bytes as f64 / job.teacher.bytes as f64,
-                    parameter_ratio: (teacher_size.parameters > 0)
-                        .then(|| parameters as f64 / teacher_size.parameters as f64),
-                },
-                latency: StudentLatency {
-                    speedup: teacher_latency.p50_ms / own.p50_ms,
-                    own,
-                },
-                pareto_optimal: false,
-                gates: Default::default(),
-            };
-            c.gates = judge(&s.gates, &c, n);
-            c
-        })
-        .collect();
-    rank(&mut candidates, s.rank_by);
-    mark_pareto(&mut candidates, s.rank_by);
-    let (verdict, recommended) = verdict(&candidates);
-    Report {
-        evaluation: job.evaluation,
-        project: job.project.clone(),
-        created_at: job.created_at,
-        finished_at: OffsetDateTime::now_utc(),
-        environment: Environment::current(offline_threads),
-        settings: ReportSettings {
-            temperature: s.temperature,
-            alpha: s.alpha,
-            batch_size: s.batch_size,
-            latency: s.latency,
-            rank_by: s.rank_by,
-            gates: s.gates.clone(),
-            output: s.output.clone(),
-        },
-        dataset: DatasetSummary {
-            id: job.dataset.id,
-            name: job.dataset.name.clone(),
-            samples: n,
-            has_labels: setup.set.labels().is_some(),
-        },
-        teacher: TeacherEntry {
-            model: summary(&job.teacher),
-            output_kind: scores.teacher_kind,
-            accuracy: scores.teacher_accuracy,
-            size: teacher_size,
-            latency: teacher_latency,
-        },
-        candidates,
-        verdict,
-        recommended,
-    }
-}
-
-/// One model's raw scores over a set, exactly as the offline pass computes
-/// them (for checks against other engines, and for tools).
+/// One model's logits over a set, exactly as the bulk pass computes them
+/// (for checks against other engines, and for tools).
 pub fn model_scores(
     model: &std::path::Path,
     set: &std::path::Path,
     batch: usize,
     output: Option<&str>,
-) -> EngineResult<Logits> {
+) -> EngineResult<super::logits::Scores> {
     let set = EvalSet::open(set)?;
     let m = Model::load(model)?;
-    let out = m.output_index(output)?;
     let label = model
         .file_name()
         .map_or("model".into(), |f| f.to_string_lossy().into_owned());
-    let binding = bind(&m, &set, &label)?;
-    let p = Prepared::new(label, m, binding, out)?;
+    let p = Prepared::new("model", label, m, &set, output)?;
     let never = || false;
-    Ok(offline::run(
+    bulk::run(
         &p,
         &set,
-        p.offline_batch(batch, set.samples()),
+        p.bulk_batch(batch, set.samples()),
         &never,
         &|_| {},
     )?
-    .raw)
+    .map(|b| b.raw)
+    .ok_or_else(|| EngineError::InvalidModel("the bulk pass stopped".into()))
 }

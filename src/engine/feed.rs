@@ -1,140 +1,20 @@
-//! Fitting an evaluation set to a model's inputs, and feeding it batch by
-//! batch as tract tensors of the input's type.
+//! Feeding an evaluation set to a model batch by batch, as tract tensors of
+//! each input's type (`fit::bind` decided which array feeds which input).
 //!
-//! Conversions are refused when the dtype cannot carry the values (a float
-//! array into an integer input); narrowing ones (float64 into float32,
-//! int64 into int32) are accepted and checked value by value, so a value that
-//! would change is an error naming its array and sample.
-
-use std::collections::HashMap;
+//! Narrowing conversions (float64 into float32, int64 into int32) are
+//! checked value by value, so a value that would change is an error naming
+//! its array and sample.
 
 use tract_onnx::prelude::*;
 
 use super::dataset::{EvalSet, RowStream};
 use super::error::{EngineError, EngineResult};
-use super::model::{BatchAxis, Dim, Model, numpy_name};
-use super::npy::{self, Dtype, Header, Scalar};
-
-/// Which array feeds one model input, and how.
-#[derive(Debug, Clone)]
-pub struct InputBinding {
-    pub member: usize,
-    pub array: String,
-    pub target: DatumType,
-    /// The shape of one sample (every axis but the batch axis).
-    pub row_shape: Vec<usize>,
-}
-
-/// How an evaluation set feeds one model: an array per input, and the sizes
-/// its symbolic non-batch axes take from the set.
-#[derive(Debug, Clone)]
-pub struct Binding {
-    pub inputs: Vec<InputBinding>,
-    pub dims: HashMap<String, usize>,
-}
+use super::fit::{Binding, InputBinding};
+use super::model::numpy_name;
+use super::npy::{self, Header, Scalar};
 
 fn mismatch(msg: String) -> EngineError {
     EngineError::Mismatch(msg)
-}
-
-/// Matches arrays to `model`'s inputs by name (a one-input model takes the
-/// set's single non-label array whatever its name) and checks that each fits.
-pub fn bind(model: &Model, set: &EvalSet, label: &str) -> EngineResult<Binding> {
-    let features: Vec<(usize, Option<&str>)> = set
-        .feature_members()
-        .map(|(i, m)| (i, m.name.as_deref()))
-        .collect();
-    let inputs = &model.info.inputs;
-    if let BatchAxis::Fixed(b) = model.batch
-        && b != 1
-    {
-        return Err(mismatch(format!(
-            "model '{label}' has its batch axis fixed to {b}; single-stream latency runs one \
-             sample at a time, so export it with a symbolic or unit batch axis"
-        )));
-    }
-    let mut dims = HashMap::new();
-    let mut bound = Vec::with_capacity(inputs.len());
-    for (ix, spec) in inputs.iter().enumerate() {
-        let member = if inputs.len() == 1 && features.len() == 1 {
-            features[0].0
-        } else {
-            features
-                .iter()
-                .find(|(_, name)| *name == Some(spec.name.as_str()))
-                .map(|(i, _)| *i)
-                .ok_or_else(|| {
-                    let names: Vec<&str> = features.iter().filter_map(|(_, n)| *n).collect();
-                    mismatch(format!(
-                        "model '{label}' needs an array named '{}' and the set has none \
-                         (its arrays: {})",
-                        spec.name,
-                        if names.is_empty() {
-                            "one unnamed array".into()
-                        } else {
-                            names.join(", ")
-                        }
-                    ))
-                })?
-        };
-        let header = &set.member(member).header;
-        let array = set
-            .member(member)
-            .name
-            .clone()
-            .unwrap_or_else(|| "the array".into());
-        let target = model.input_types[ix];
-        check_dtype(header.dtype, target, &array, &spec.name)?;
-        if header.shape.len() != spec.shape.len() {
-            return Err(mismatch(format!(
-                "array '{array}' has shape {:?} but input '{}' of model '{label}' has {} axes",
-                header.shape,
-                spec.name,
-                spec.shape.len()
-            )));
-        }
-        for (axis, (want, &have)) in spec.shape.iter().zip(&header.shape).enumerate().skip(1) {
-            let fits = match want {
-                Dim::Fixed(n) => *n == have,
-                Dim::Symbol(s) => *dims.entry(s.clone()).or_insert(have) == have,
-            };
-            if !fits {
-                return Err(mismatch(format!(
-                    "array '{array}' has size {have} on axis {axis}, which does not fit input '{}' \
-                     of model '{label}' (shape {})",
-                    spec.name,
-                    serde_json::to_string(&spec.shape).unwrap_or_default()
-                )));
-            }
-        }
-        bound.push(InputBinding {
-            member,
-            array,
-            target,
-            row_shape: header.shape[1..].to_vec(),
-        });
-    }
-    Ok(Binding {
-        inputs: bound,
-        dims,
-    })
-}
-
-fn check_dtype(src: Dtype, target: DatumType, array: &str, input: &str) -> EngineResult<()> {
-    let ok = match target {
-        DatumType::F16 | DatumType::F32 | DatumType::F64 => true,
-        DatumType::Bool => src == Dtype::Bool,
-        _ => !src.is_float(),
-    };
-    if ok {
-        Ok(())
-    } else {
-        Err(mismatch(format!(
-            "array '{array}' is {} and cannot feed input '{input}' ({}) without loss",
-            src.name(),
-            numpy_name(target).unwrap_or("?")
-        )))
-    }
 }
 
 /// Streams batches of every bound array in step.

@@ -3,12 +3,11 @@
 //! an order rotated by one each round, each run timed around the engine call
 //! alone. Runs on the calling thread; the caller makes sure nothing else runs.
 
-use std::sync::atomic::{AtomicBool, Ordering};
 use std::time::Instant;
 
 use tract_onnx::prelude::*;
 
-use super::error::{EngineError, EngineResult};
+use super::error::EngineResult;
 use super::model::{Plan, guarded};
 use super::stats::{mean, nearest_rank, sample_stdev};
 use crate::report::Latency;
@@ -25,19 +24,14 @@ pub fn measure(
     entries: &[Entry<'_>],
     warmup: u32,
     iterations: u32,
-    cancel: &AtomicBool,
     tick: &dyn Fn(u64),
 ) -> EngineResult<Vec<Vec<f64>>> {
     let mut states = entries
         .iter()
         .map(|e| guarded("preparing a run", || e.plan.runnable.spawn()))
         .collect::<EngineResult<Vec<_>>>()?;
-    let canceled = || cancel.load(Ordering::Relaxed);
     for (e, state) in entries.iter().zip(&mut states) {
         for w in 0..warmup as usize {
-            if canceled() {
-                return Err(EngineError::Canceled);
-            }
             let inputs = e.samples[w % e.samples.len()].clone();
             guarded("warm-up run", || state.run(inputs))?;
         }
@@ -45,9 +39,6 @@ pub fn measure(
     let count = entries.len();
     let mut times = vec![Vec::with_capacity(iterations as usize); count];
     for round in 0..iterations as usize {
-        if canceled() {
-            return Err(EngineError::Canceled);
-        }
         for step in 0..count {
             let ix = (round + step) % count;
             let e = &entries[ix];
@@ -64,7 +55,7 @@ pub fn measure(
     Ok(times)
 }
 
-/// Summarizes one model's timings; throughput comes from the offline pass.
+/// Summarizes one model's timings; throughput comes from the bulk pass.
 pub fn summarize(ms: &[f64], throughput_sps: f64) -> Latency {
     let mut sorted = ms.to_vec();
     sorted.sort_by(f64::total_cmp);

@@ -23,17 +23,39 @@ pub enum OutputKindChoice {
     Probabilities,
 }
 
-/// Row-major [n, c] scores of one model over the whole set.
+/// Row-major [n, c] scores of one model over the whole set, as its output
+/// gave them: logits or probabilities, not yet known which.
 #[derive(Debug, Clone, PartialEq)]
-pub struct Logits {
+pub struct Scores {
     pub n: usize,
     pub c: usize,
     pub data: Vec<f64>,
 }
 
+/// Scores that are logits (or log-probabilities, which softmax treats
+/// alike): what every metric takes. Only `to_logits` makes them from a
+/// model's output, so a metric never sees raw probabilities.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Logits(Scores);
+
+impl std::ops::Deref for Logits {
+    type Target = Scores;
+
+    fn deref(&self) -> &Scores {
+        &self.0
+    }
+}
+
 impl Logits {
+    /// Rows given as logits, e.g. by a test or a tool that computed them.
+    pub fn from_rows(c: usize, data: Vec<f64>) -> Self {
+        Logits(Scores::from_rows(c, data))
+    }
+}
+
+impl Scores {
     pub fn new(c: usize) -> Self {
-        Logits {
+        Scores {
             n: 0,
             c,
             data: Vec::new(),
@@ -42,7 +64,7 @@ impl Logits {
 
     pub fn from_rows(c: usize, data: Vec<f64>) -> Self {
         assert_eq!(data.len() % c, 0, "data is not a whole number of rows");
-        Logits {
+        Scores {
             n: data.len() / c,
             c,
             data,
@@ -86,7 +108,7 @@ pub fn class_count(shape: &[usize]) -> EngineResult<usize> {
 
 /// `auto`'s rule: probabilities when every value lies in [0, 1] and every
 /// row sums to 1 within 1e-3, else logits.
-pub fn detect(raw: &Logits) -> OutputKind {
+pub fn detect(raw: &Scores) -> OutputKind {
     let in_range = raw.data.iter().all(|&v| (0.0..=1.0).contains(&v));
     let normalized = raw
         .rows()
@@ -99,7 +121,7 @@ pub fn detect(raw: &Logits) -> OutputKind {
 }
 
 /// Applies a request's choice to a model's whole raw output.
-pub fn to_logits(mut raw: Logits, choice: OutputKindChoice) -> (Logits, OutputKind) {
+pub fn to_logits(mut raw: Scores, choice: OutputKindChoice) -> (Logits, OutputKind) {
     let kind = match choice {
         OutputKindChoice::Auto => detect(&raw),
         OutputKindChoice::Logits => OutputKind::Logits,
@@ -110,7 +132,7 @@ pub fn to_logits(mut raw: Logits, choice: OutputKindChoice) -> (Logits, OutputKi
             *v = v.max(1e-12).ln();
         }
     }
-    (raw, kind)
+    (Logits(raw), kind)
 }
 
 #[cfg(test)]
@@ -133,17 +155,17 @@ mod tests {
 
     #[test]
     fn auto_sees_probabilities_only_when_rows_sum_to_one() {
-        let probs = Logits::from_rows(2, vec![0.25, 0.75, 0.5, 0.5005]);
+        let probs = Scores::from_rows(2, vec![0.25, 0.75, 0.5, 0.5005]);
         assert_eq!(detect(&probs), OutputKind::Probabilities);
-        let off = Logits::from_rows(2, vec![0.25, 0.75, 0.5, 0.502]);
+        let off = Scores::from_rows(2, vec![0.25, 0.75, 0.5, 0.502]);
         assert_eq!(detect(&off), OutputKind::Logits);
-        let negative = Logits::from_rows(2, vec![-0.25, 1.25]);
+        let negative = Scores::from_rows(2, vec![-0.25, 1.25]);
         assert_eq!(detect(&negative), OutputKind::Logits);
     }
 
     #[test]
     fn probabilities_become_clamped_logs() {
-        let (l, kind) = to_logits(Logits::from_rows(2, vec![0.0, 1.0]), OutputKindChoice::Auto);
+        let (l, kind) = to_logits(Scores::from_rows(2, vec![0.0, 1.0]), OutputKindChoice::Auto);
         assert_eq!(kind, OutputKind::Probabilities);
         assert_eq!(l.data, vec![1e-12f64.ln(), 0.0]);
     }

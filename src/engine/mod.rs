@@ -3,43 +3,49 @@
 //! of HTTP or SQL; the service hands it files and settings and stores what it
 //! returns.
 //!
-//! The data's path: `model` and `dataset` read what was uploaded; `feed` fits
-//! the set to each model; `offline` runs the whole set; `logits` and
-//! `metrics` score the outputs; `latency` times single-stream runs; `gates`
-//! and `ranking` judge; `evaluate` ties it together.
+//! The data's path: `model` and `dataset` read what was uploaded; `fit`
+//! decides whether a set fits a model (from records or loaded models);
+//! `setup` loads an evaluation's models once; `feed` streams the set into
+//! them; `bulk` runs the whole set; `latency` times single samples;
+//! `logits` and `metrics` score the outputs; `gates` and `ranking` judge;
+//! `assemble` writes the report; `evaluate` ties it together.
 
+pub mod assemble;
+pub mod bulk;
 pub mod cache;
 pub mod dataset;
 pub mod environment;
 pub mod error;
 pub mod evaluate;
 pub mod feed;
+pub mod fit;
 pub mod gates;
+pub mod job;
 pub mod latency;
 pub mod logits;
 pub mod metrics;
 pub mod model;
 pub mod npy;
-pub mod offline;
 pub mod ranking;
 pub mod settings;
+pub mod setup;
 pub mod stats;
 
 pub use error::{EngineError, EngineResult};
-pub use evaluate::{
-    Alone, CpuLease, DatasetRef, Hooks, Job, ModelRef, Options, Outcome, Stage, evaluate, prepare,
-};
+pub use evaluate::{Outcome, evaluate};
+pub use job::{Alone, CpuLock, DatasetRef, Hooks, Job, ModelRef, Options, Stage};
+pub use setup::prepare;
 
 use std::path::Path;
 
-/// The upload check of a model: it loads, types and plans at batch 1.
+/// The upload inspection of a model: it loads, types and plans at batch 1.
 pub fn inspect_model(path: &Path) -> EngineResult<model::ModelInfo> {
     let m = model::Model::load(path)?;
     m.plan(1, &Default::default(), 0)?;
     Ok(m.info)
 }
 
-/// The upload check of an evaluation set: headers, lengths and labels.
+/// The upload inspection of an evaluation set: headers, lengths and labels.
 pub fn inspect_dataset(path: &Path) -> EngineResult<dataset::DatasetInfo> {
     Ok(dataset::EvalSet::open(path)?.info())
 }

@@ -16,6 +16,8 @@ use tract_onnx::prelude::*;
 use tract_onnx::tract_core::ops::Cost;
 
 use super::error::{EngineError, EngineResult};
+use super::fit::{Classes, OutputFacts, Scored, choose_output};
+use super::logits::class_count;
 
 /// One axis of a tensor: a size, or the name of a symbolic dimension.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
@@ -62,7 +64,6 @@ pub struct Model {
     pub info: ModelInfo,
     typed: TypedModel,
     pub batch: BatchAxis,
-    pub(crate) input_types: Vec<DatumType>,
 }
 
 /// A runnable plan for one batch size, shared between threads.
@@ -132,7 +133,6 @@ impl Model {
             tract_onnx::onnx().model_for_proto_model(&proto)
         })?;
         let shapes = name_input_axes(&declared)?;
-        let mut input_types = Vec::with_capacity(declared.len());
         let mut inputs = Vec::with_capacity(declared.len());
         for (ix, (value, dims)) in declared.iter().zip(&shapes).enumerate() {
             let dt = input_datum_type(value)?;
@@ -146,7 +146,6 @@ impl Model {
             guarded("the engine cannot set this model's input", || {
                 model.set_input_fact(ix, InferenceFact::dt_shape(dt, tdims))
             })?;
-            input_types.push(dt);
             inputs.push(TensorSpec {
                 name: value.name.clone(),
                 dtype: numpy_name(dt)?.to_string(),
@@ -176,34 +175,45 @@ impl Model {
             inputs,
             outputs,
         };
-        let mut model = Model {
-            info,
-            typed,
-            batch,
-            input_types,
-        };
+        let mut model = Model { info, typed, batch };
         model.info.macs = model.macs_per_sample(&HashMap::new());
         Ok(model)
     }
 
-    /// Index of the scored output: the named one, or the first.
-    pub fn output_index(&self, output: Option<&str>) -> EngineResult<usize> {
-        match output {
-            None => Ok(0),
-            Some(name) => self
-                .info
-                .outputs
-                .iter()
-                .position(|o| o.name == name)
-                .ok_or_else(|| {
-                    let known: Vec<&str> =
-                        self.info.outputs.iter().map(|o| o.name.as_str()).collect();
-                    EngineError::Mismatch(format!(
-                        "the model has no output named '{name}' (its outputs: {})",
-                        known.join(", ")
-                    ))
-                }),
-        }
+    /// The scored output for a request's choice (`None`: the default rule),
+    /// with the set's dimensions bound so that every shape is known.
+    pub fn scored_output(
+        &self,
+        requested: Option<&str>,
+        dims: &HashMap<String, usize>,
+        label: &str,
+    ) -> EngineResult<Scored> {
+        let shapes = (0..self.info.outputs.len())
+            .map(|ix| self.output_shape(1, dims, ix).ok())
+            .collect::<Vec<_>>();
+        let facts: Vec<OutputFacts<'_>> = self
+            .info
+            .outputs
+            .iter()
+            .zip(&shapes)
+            .map(|(o, shape)| OutputFacts {
+                name: &o.name,
+                float: matches!(o.dtype.as_str(), "float16" | "float32" | "float64"),
+                classes: match shape {
+                    Some(s) => match class_count(s) {
+                        Ok(c) => Classes::Squeezes(c),
+                        Err(_) => Classes::DoesNot,
+                    },
+                    None => Classes::DoesNot,
+                },
+                shape: format!("{:?}", shape.as_deref().unwrap_or_default()),
+            })
+            .collect();
+        choose_output(&facts, requested, label)?.ok_or_else(|| {
+            invalid(format!(
+                "model '{label}': the shape of its outputs cannot be worked out from the set"
+            ))
+        })
     }
 
     /// Every symbol's value: the batch axis, then the set's other dimensions.
@@ -454,6 +464,26 @@ fn input_datum_type(value: &pb::ValueInfoProto) -> EngineResult<DatumType> {
         }
     };
     Ok(dt)
+}
+
+/// The tract type of a numpy dtype name, as records spell it.
+pub(crate) fn datum_type_of(name: &str) -> Option<DatumType> {
+    [
+        DatumType::F32,
+        DatumType::F64,
+        DatumType::F16,
+        DatumType::I64,
+        DatumType::I32,
+        DatumType::I16,
+        DatumType::I8,
+        DatumType::U8,
+        DatumType::U16,
+        DatumType::U32,
+        DatumType::U64,
+        DatumType::Bool,
+    ]
+    .into_iter()
+    .find(|&dt| numpy_name(dt).ok() == Some(name))
 }
 
 pub(crate) fn numpy_name(dt: DatumType) -> EngineResult<&'static str> {

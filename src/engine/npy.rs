@@ -5,6 +5,8 @@
 
 use std::io::Read;
 
+use tract_onnx::prelude::f16;
+
 use super::error::{EngineError, EngineResult};
 
 /// Element types an evaluation set may hold, spelled as numpy names.
@@ -24,6 +26,21 @@ pub enum Dtype {
     Float64,
 }
 
+const ALL_DTYPES: [Dtype; 12] = [
+    Dtype::Bool,
+    Dtype::Int8,
+    Dtype::Int16,
+    Dtype::Int32,
+    Dtype::Int64,
+    Dtype::Uint8,
+    Dtype::Uint16,
+    Dtype::Uint32,
+    Dtype::Uint64,
+    Dtype::Float16,
+    Dtype::Float32,
+    Dtype::Float64,
+];
+
 impl Dtype {
     pub fn name(self) -> &'static str {
         match self {
@@ -40,6 +57,11 @@ impl Dtype {
             Dtype::Float32 => "float32",
             Dtype::Float64 => "float64",
         }
+    }
+
+    /// The dtype of a numpy name such as `float32`, as records spell it.
+    pub fn from_name(name: &str) -> Option<Dtype> {
+        ALL_DTYPES.into_iter().find(|d| d.name() == name)
     }
 
     pub fn size(self) -> usize {
@@ -277,22 +299,9 @@ pub fn element(raw: &[u8], header: &Header, i: usize) -> Scalar {
         Dtype::Uint32 => Scalar::Int(u32::from_le_bytes(le4) as i128),
         Dtype::Int64 => Scalar::Int(i64::from_le_bytes(b) as i128),
         Dtype::Uint64 => Scalar::Int(u64::from_le_bytes(b) as i128),
-        Dtype::Float16 => Scalar::Float(f16_to_f64(u16::from_le_bytes(le2))),
+        Dtype::Float16 => Scalar::Float(f16::from_bits(u16::from_le_bytes(le2)).to_f64()),
         Dtype::Float32 => Scalar::Float(f32::from_le_bytes(le4) as f64),
         Dtype::Float64 => Scalar::Float(f64::from_le_bytes(b)),
-    }
-}
-
-/// IEEE 754 binary16 to f64, exactly (every half value is representable).
-fn f16_to_f64(bits: u16) -> f64 {
-    let sign = if bits & 0x8000 != 0 { -1.0 } else { 1.0 };
-    let exp = ((bits >> 10) & 0x1f) as i32;
-    let frac = (bits & 0x3ff) as f64;
-    match exp {
-        0 => sign * frac * 2f64.powi(-24),
-        31 if frac == 0.0 => sign * f64::INFINITY,
-        31 => f64::NAN,
-        e => sign * (1.0 + frac / 1024.0) * 2f64.powi(e - 15),
     }
 }
 
@@ -376,9 +385,15 @@ mod tests {
     #[test]
     fn half_precision_decodes_exactly() {
         // 0x3c00 = 1.0, 0xc000 = -2.0, 0x0001 = 2^-24 (IEEE 754-2008 binary16).
-        assert_eq!(f16_to_f64(0x3c00), 1.0);
-        assert_eq!(f16_to_f64(0xc000), -2.0);
-        assert_eq!(f16_to_f64(0x0001), 2f64.powi(-24));
+        let h = Header {
+            dtype: Dtype::Float16,
+            big_endian: false,
+            shape: vec![3],
+        };
+        let raw = [0x00, 0x3c, 0x00, 0xc0, 0x01, 0x00];
+        assert_eq!(element(&raw, &h, 0), Scalar::Float(1.0));
+        assert_eq!(element(&raw, &h, 1), Scalar::Float(-2.0));
+        assert_eq!(element(&raw, &h, 2), Scalar::Float(2f64.powi(-24)));
     }
 
     #[test]

@@ -1,7 +1,5 @@
 //! Ranking, Pareto flags and the verdict (metrics.md, "Ranking").
 
-use std::cmp::Ordering;
-
 use uuid::Uuid;
 
 use super::settings::RankBy;
@@ -23,12 +21,10 @@ fn key(c: &Candidate, rank_by: RankBy) -> f64 {
 
 /// Orders candidates in place and numbers their ranks from 1: those passing
 /// every gate first; inside each group by `rank_by`; ties by p50_ms, then
-/// bytes, then upload order (model ids are UUID v7 and sort by upload time),
-/// then position in the request.
+/// bytes, then upload order (model ids are UUID v7 and sort by upload time).
+/// The sort is stable, so position in the request breaks any tie left.
 pub fn rank(candidates: &mut [Candidate], rank_by: RankBy) {
-    let order = |a: &(usize, &Candidate), b: &(usize, &Candidate)| -> Ordering {
-        let (ia, a) = *a;
-        let (ib, b) = *b;
+    candidates.sort_by(|a, b| {
         b.gates
             .passed
             .cmp(&a.gates.passed)
@@ -36,15 +32,9 @@ pub fn rank(candidates: &mut [Candidate], rank_by: RankBy) {
             .then(a.latency.own.p50_ms.total_cmp(&b.latency.own.p50_ms))
             .then(a.size.bytes.cmp(&b.size.bytes))
             .then(a.model.id.cmp(&b.model.id))
-            .then(ia.cmp(&ib))
-    };
-    let mut indexed: Vec<(usize, &Candidate)> = candidates.iter().enumerate().collect();
-    indexed.sort_by(order);
-    let permutation: Vec<usize> = indexed.into_iter().map(|(i, _)| i).collect();
-    let sorted: Vec<Candidate> = permutation.iter().map(|&i| candidates[i].clone()).collect();
-    for (slot, (rank, mut c)) in candidates.iter_mut().zip(sorted.into_iter().enumerate()) {
-        c.rank = rank as u32 + 1;
-        *slot = c;
+    });
+    for (i, c) in candidates.iter_mut().enumerate() {
+        c.rank = i as u32 + 1;
     }
 }
 

@@ -1,11 +1,13 @@
-//! An evaluation's settings as applied (defaults filled in) and the checks
-//! that keep them within their limits. Gates are parsed here too, so an
-//! unknown gate name is refused before anything runs.
+//! An evaluation's settings as applied (defaults filled in), and their
+//! validation against the limits of metrics.md, so that a request that
+//! cannot run is refused before anything is stored.
+
+use std::collections::BTreeMap;
 
 use serde::{Deserialize, Serialize};
-use serde_json::{Map, Value};
+use uuid::Uuid;
 
-use super::gates::GateName;
+use super::gates::{Gates, Needs};
 use super::logits::OutputKindChoice;
 
 /// A setting that is out of its limits, with the input it came from.
@@ -24,6 +26,7 @@ fn refuse(field: &str, message: impl Into<String>) -> SettingsError {
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
 pub struct OutputKinds {
     #[serde(default)]
     pub teacher: OutputKindChoice,
@@ -40,12 +43,17 @@ impl Default for OutputKinds {
     }
 }
 
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
 pub struct LatencySettings {
     #[serde(default = "default_warmup")]
     pub warmup: u32,
     #[serde(default = "default_iterations")]
     pub iterations: u32,
+    /// Relative difference in speed below which two models are equally
+    /// fast (metrics.md, "Comparing two models' speed").
+    #[serde(default = "default_tolerance")]
+    pub tolerance: f64,
 }
 
 fn default_warmup() -> u32 {
@@ -54,12 +62,16 @@ fn default_warmup() -> u32 {
 fn default_iterations() -> u32 {
     100
 }
+fn default_tolerance() -> f64 {
+    0.03
+}
 
 impl Default for LatencySettings {
     fn default() -> Self {
         LatencySettings {
             warmup: default_warmup(),
             iterations: default_iterations(),
+            tolerance: default_tolerance(),
         }
     }
 }
@@ -76,79 +88,49 @@ pub enum RankBy {
     Bytes,
 }
 
-/// Gates as given: thresholds by name, and the optional confidence that
-/// makes proportion gates judge the cautious end of their interval.
-#[derive(Debug, Clone, PartialEq, Default)]
-pub struct Gates {
-    /// In the order of metrics.md's gate table, so reports list them stably.
-    pub thresholds: Vec<(GateName, f64)>,
-    pub confidence: Option<f64>,
+/// Which output of each model is scored (metrics.md, "Turning outputs into
+/// logits"): one name that every model must have, or a name per model id;
+/// a model left out takes the default rule.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+#[serde(untagged)]
+pub enum OutputChoice {
+    Every(String),
+    PerModel(BTreeMap<Uuid, String>),
 }
 
-impl Gates {
-    pub fn parse(value: &Map<String, Value>) -> Result<Gates, SettingsError> {
-        let mut gates = Gates::default();
-        for (key, v) in value {
-            let field = format!("gates.{key}");
-            let number = v
-                .as_f64()
-                .filter(|x| x.is_finite())
-                .ok_or_else(|| refuse(&field, format!("gate '{key}' needs a finite number")))?;
-            if key == "confidence" {
-                if !(number > 0.0 && number < 1.0) {
-                    return Err(refuse(
-                        &field,
-                        "confidence must lie strictly between 0 and 1",
-                    ));
-                }
-                gates.confidence = Some(number);
-                continue;
-            }
-            let name = GateName::parse(key).ok_or_else(|| {
-                refuse(
-                    &field,
-                    format!(
-                        "unknown gate '{key}'; known gates: {}",
-                        GateName::all_names()
-                    ),
-                )
-            })?;
-            gates.thresholds.push((name, number));
+impl OutputChoice {
+    /// The output named for this model, if any.
+    pub fn for_model(&self, id: Uuid) -> Option<&str> {
+        match self {
+            OutputChoice::Every(name) => Some(name),
+            OutputChoice::PerModel(map) => map.get(&id).map(String::as_str),
         }
-        gates.thresholds.sort_by_key(|(name, _)| *name);
-        Ok(gates)
-    }
-
-    pub fn needs_labels(&self) -> Option<GateName> {
-        self.thresholds
-            .iter()
-            .map(|(g, _)| *g)
-            .find(|g| g.needs_labels())
-    }
-
-    pub fn to_json(&self) -> Map<String, Value> {
-        let mut map: Map<String, Value> = self
-            .thresholds
-            .iter()
-            .map(|(g, v)| (g.as_str().to_string(), Value::from(*v)))
-            .collect();
-        if let Some(c) = self.confidence {
-            map.insert("confidence".into(), Value::from(c));
-        }
-        map
     }
 }
 
-impl Serialize for Gates {
-    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
-        self.to_json().serialize(s)
-    }
-}
-
-impl<'de> Deserialize<'de> for Gates {
+impl<'de> Deserialize<'de> for OutputChoice {
     fn deserialize<D: serde::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
-        let map = Map::<String, Value>::deserialize(d)?;
-        Gates::parse(&map).map_err(serde::de::Error::custom)
+        struct Visitor;
+        impl<'de> serde::de::Visitor<'de> for Visitor {
+            type Value = OutputChoice;
+
+            fn expecting(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+                f.write_str("an output name, or an object mapping model ids to output names")
+            }
+
+            fn visit_str<E: serde::de::Error>(self, v: &str) -> Result<OutputChoice, E> {
+                Ok(OutputChoice::Every(v.to_string()))
+            }
+
+            fn visit_map<A: serde::de::MapAccess<'de>>(
+                self,
+                map: A,
+            ) -> Result<OutputChoice, A::Error> {
+                BTreeMap::deserialize(serde::de::value::MapAccessDeserializer::new(map))
+                    .map(OutputChoice::PerModel)
+            }
+        }
+        d.deserialize_any(Visitor)
     }
 }
 
@@ -157,7 +139,7 @@ impl<'de> Deserialize<'de> for Gates {
 pub struct Settings {
     pub temperature: f64,
     pub alpha: f64,
-    pub output: Option<String>,
+    pub output: Option<OutputChoice>,
     pub output_kind: OutputKinds,
     pub batch_size: u32,
     pub latency: LatencySettings,
@@ -182,7 +164,7 @@ impl Default for Settings {
 
 impl Settings {
     /// The limits of metrics.md, and those that keep every figure defined.
-    pub fn check(&self, has_labels: bool) -> Result<(), SettingsError> {
+    pub fn validate(&self, has_labels: bool) -> Result<(), SettingsError> {
         if !(self.temperature.is_finite() && self.temperature > 0.0) {
             return Err(refuse(
                 "temperature",
@@ -210,8 +192,22 @@ impl Settings {
                 "latency.iterations must lie between 1 and 100000",
             ));
         }
+        if !(0.0..=0.5).contains(&self.latency.tolerance) {
+            return Err(refuse(
+                "latency.tolerance",
+                "latency.tolerance must lie between 0 and 0.5",
+            ));
+        }
+        if let Some(c) = self.gates.confidence
+            && !(c > 0.0 && c < 1.0)
+        {
+            return Err(refuse(
+                "gates.confidence",
+                "confidence must lie strictly between 0 and 1",
+            ));
+        }
         if !has_labels {
-            if let Some(g) = self.gates.needs_labels() {
+            if let Some(g) = self.gates.needing(Needs::Labels) {
                 return Err(refuse(
                     &format!("gates.{}", g.as_str()),
                     format!(
@@ -234,53 +230,68 @@ impl Settings {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use serde_json::json;
+    use serde_json::{Value, json};
 
-    fn gates(v: Value) -> Result<Gates, SettingsError> {
-        Gates::parse(v.as_object().unwrap())
-    }
-
-    #[test]
-    fn unknown_gate_names_are_refused_with_their_field() {
-        let err = gates(json!({"min_agreemnt": 0.9})).unwrap_err();
-        assert_eq!(err.field, "gates.min_agreemnt");
-        assert!(err.message.contains("min_agreement"), "{}", err.message);
+    fn gates(v: Value) -> Gates {
+        serde_json::from_value(v).unwrap()
     }
 
     #[test]
     fn confidence_must_lie_strictly_inside_zero_and_one() {
-        assert!(gates(json!({"confidence": 1.0})).is_err());
-        assert!(gates(json!({"confidence": 0.0})).is_err());
-        assert_eq!(
-            gates(json!({"confidence": 0.9})).unwrap().confidence,
-            Some(0.9)
-        );
+        for c in [0.0, 1.0, 1.5] {
+            let s = Settings {
+                gates: gates(json!({"confidence": c})),
+                ..Settings::default()
+            };
+            assert_eq!(s.validate(true).unwrap_err().field, "gates.confidence");
+        }
+        let s = Settings {
+            gates: gates(json!({"confidence": 0.9})),
+            ..Settings::default()
+        };
+        assert!(s.validate(true).is_ok());
     }
 
     #[test]
     fn label_gates_on_an_unlabelled_set_are_refused() {
         let s = Settings {
-            gates: gates(json!({"min_top1": 0.8})).unwrap(),
+            gates: gates(json!({"min_top1": 0.8})),
             ..Settings::default()
         };
-        assert_eq!(s.check(false).unwrap_err().field, "gates.min_top1");
-        assert!(s.check(true).is_ok());
+        assert_eq!(s.validate(false).unwrap_err().field, "gates.min_top1");
+        assert!(s.validate(true).is_ok());
     }
 
     #[test]
     fn limits_of_metrics_md_are_enforced() {
         let mut s = Settings::default();
         s.latency.iterations = 0;
-        assert_eq!(s.check(true).unwrap_err().field, "latency.iterations");
+        assert_eq!(s.validate(true).unwrap_err().field, "latency.iterations");
         let s = Settings {
             batch_size: 4097,
             ..Settings::default()
         };
-        assert_eq!(s.check(true).unwrap_err().field, "batch_size");
+        assert_eq!(s.validate(true).unwrap_err().field, "batch_size");
         let s = Settings {
             temperature: 0.0,
             ..Settings::default()
         };
-        assert_eq!(s.check(true).unwrap_err().field, "temperature");
+        assert_eq!(s.validate(true).unwrap_err().field, "temperature");
+    }
+
+    #[test]
+    fn an_output_is_one_name_or_a_name_per_model() {
+        let id = Uuid::now_v7();
+        let every: OutputChoice = serde_json::from_value(json!("logits")).unwrap();
+        assert_eq!(every.for_model(id), Some("logits"));
+        let per: OutputChoice =
+            serde_json::from_value(json!({ id.to_string(): "probabilities" })).unwrap();
+        assert_eq!(per.for_model(id), Some("probabilities"));
+        assert_eq!(per.for_model(Uuid::now_v7()), None);
+        assert_eq!(
+            serde_json::to_value(&per).unwrap(),
+            json!({ id.to_string(): "probabilities" })
+        );
+        assert!(serde_json::from_value::<OutputChoice>(json!(3)).is_err());
     }
 }

@@ -14,12 +14,16 @@ pub(super) async fn healthz() -> Response {
 
 pub(super) async fn readyz(State(app): State<App>) -> Result<Response, AppError> {
     if !app.store.ping().await {
-        return Err(AppError::Unavailable("the database does not answer".into()));
+        return Err(AppError::Unavailable {
+            detail: "the database does not answer".into(),
+            retry_after: None,
+        });
     }
-    if !app.queue.workers_alive() {
-        return Err(AppError::Unavailable(
-            "no evaluation worker is running".into(),
-        ));
+    if app.workers.alive() == 0 {
+        return Err(AppError::Unavailable {
+            detail: "no evaluation worker is running".into(),
+            retry_after: None,
+        });
     }
     Ok(Json(json!({"status": "ready"})).into_response())
 }

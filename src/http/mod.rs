@@ -4,9 +4,9 @@
 mod catalog;
 mod evaluations;
 pub(crate) use evaluations::list_query;
+pub mod errors;
 pub(crate) mod extract;
 mod health;
-pub mod problem;
 
 use std::time::Duration;
 
@@ -22,9 +22,10 @@ use tower_http::trace::TraceLayer;
 
 use crate::service::App;
 
-/// How long a non-upload request may take (creation runs the engine's
-/// checks, which load every model).
-const REQUEST_TIMEOUT: Duration = Duration::from_secs(300);
+/// How long a read or a cancel may take. Uploads stream for as long as
+/// they need, and creation may wait for a check slot; both are bounded by
+/// the sandbox's own limits instead.
+const REQUEST_TIMEOUT: Duration = Duration::from_secs(30);
 
 /// The OpenAPI description of this contract, served as is.
 pub const OPENAPI: &str = include_str!("../../openapi.yaml");
@@ -33,10 +34,11 @@ async fn openapi() -> impl IntoResponse {
     ([(header::CONTENT_TYPE, "application/yaml")], OPENAPI)
 }
 
-/// Whether a route streams its body (uploads) or is bounded in time.
+/// Whether a route may wait on the sandbox (uploads, creation) or is
+/// bounded in time.
 #[derive(Clone, Copy, PartialEq, Eq)]
 enum Kind {
-    Upload,
+    Checked,
     Bounded,
 }
 
@@ -45,13 +47,13 @@ enum Kind {
 fn table() -> Vec<(&'static str, &'static str, Kind, MethodRouter<App>)> {
     use Kind::*;
     vec![
-        ("post", "/v1/models", Upload, post(catalog::upload_model)),
+        ("post", "/v1/models", Checked, post(catalog::upload_model)),
         ("get", "/v1/models", Bounded, get(catalog::list_models)),
         ("get", "/v1/models/{id}", Bounded, get(catalog::get_model)),
         (
             "post",
             "/v1/datasets",
-            Upload,
+            Checked,
             post(catalog::upload_dataset),
         ),
         ("get", "/v1/datasets", Bounded, get(catalog::list_datasets)),
@@ -64,7 +66,7 @@ fn table() -> Vec<(&'static str, &'static str, Kind, MethodRouter<App>)> {
         (
             "post",
             "/v1/evaluations",
-            Bounded,
+            Checked,
             post(evaluations::create),
         ),
         ("get", "/v1/evaluations", Bounded, get(evaluations::list)),
@@ -107,11 +109,10 @@ pub fn routes() -> Vec<(&'static str, &'static str)> {
 }
 
 pub fn router(app: App) -> Router {
-    // Uploads stream for as long as they need; everything else is bounded.
-    let (mut uploads, mut bounded) = (Router::new(), Router::new());
+    let (mut checked, mut bounded) = (Router::new(), Router::new());
     for (_, path, kind, handler) in table() {
         match kind {
-            Kind::Upload => uploads = uploads.route(path, handler),
+            Kind::Checked => checked = checked.route(path, handler),
             Kind::Bounded => bounded = bounded.route(path, handler),
         }
     }
@@ -122,7 +123,7 @@ pub fn router(app: App) -> Router {
         ))
         .layer(CompressionLayer::new());
     let request_id = HeaderName::from_static("x-request-id");
-    uploads.merge(bounded).with_state(app).layer(
+    checked.merge(bounded).with_state(app).layer(
         ServiceBuilder::new()
             .layer(SetRequestIdLayer::new(request_id.clone(), MakeRequestUuid))
             .layer(TraceLayer::new_for_http().make_span_with(|req: &Request<_>| {
@@ -134,6 +135,6 @@ pub fn router(app: App) -> Router {
                 tracing::info_span!("request", request_id = %id, method = %req.method(), path = %req.uri().path())
             }))
             .layer(PropagateRequestIdLayer::new(request_id))
-            .layer(axum::middleware::from_fn(problem::ensure_problem_json)),
+            .layer(axum::middleware::from_fn(errors::ensure_problem_json)),
     )
 }

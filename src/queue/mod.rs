@@ -1,11 +1,8 @@
-//! The durable evaluation queue: workers claim queued evaluations from the
-//! store, run each in a child process under limits, and write the outcome.
-//! Upload checks use the same child process and limits.
+//! The durable evaluation queue and its workers: a worker claims the oldest
+//! queued evaluation from the store, runs it through the sandbox, records
+//! its progress and writes the outcome. Evaluations live in the store, so a
+//! restart loses nothing: what was running goes back to the queue.
 
-pub mod child;
-pub mod cpu_lock;
-pub mod protocol;
-pub mod task;
 mod worker;
 
-pub use worker::{JobParts, Queue, QueueConfig, build_job};
+pub use worker::Workers;

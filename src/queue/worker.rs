@@ -1,7 +1,6 @@
-//! Workers: claim, run in a child, record progress, write the outcome.
+//! Workers: claim, run in the sandbox, record progress, write the outcome.
 
 use std::collections::HashMap;
-use std::path::PathBuf;
 use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::{Arc, Mutex};
 use std::time::Duration;
@@ -12,25 +11,15 @@ use tokio_util::sync::CancellationToken;
 use tracing::Instrument;
 use uuid::Uuid;
 
-use super::child::{self, Ended, Limits};
-use super::protocol::{FailureKind, Message, Task};
-use crate::engine::settings::Settings;
-use crate::engine::{DatasetRef, Job, ModelRef};
-use crate::problem::problem;
-use crate::store::{BlobKind, EvaluationRecord, Progress, Store, StoreError};
-
-#[derive(Debug, Clone)]
-pub struct QueueConfig {
-    /// The binary to start children from (this one).
-    pub exe: PathBuf,
-    pub limits: Limits,
-    pub workers: usize,
-    pub offline_threads: usize,
-}
+use crate::error::AppError;
+use crate::problem::Problem;
+use crate::sandbox::{Sandbox, SandboxError};
+use crate::store::{EvaluationRecord, Progress, Status, Store, StoreError};
 
 struct Inner {
     store: Store,
-    config: QueueConfig,
+    sandbox: Sandbox,
+    /// Who claims, as written in `claimed_by`: this process and the worker.
     instance: Uuid,
     wake: Notify,
     running: Mutex<HashMap<Uuid, CancellationToken>>,
@@ -39,16 +28,29 @@ struct Inner {
     handles: Mutex<Vec<JoinHandle<()>>>,
 }
 
-/// A handle on the queue, cheap to clone into every request.
+/// A handle on this process's workers, cheap to clone into every request.
 #[derive(Clone)]
-pub struct Queue {
+pub struct Workers {
     inner: Arc<Inner>,
 }
 
-impl Queue {
-    /// Starts the workers. Evaluations a dead process left running are
+/// Decrements the live-worker count however the worker task ends.
+struct Alive<'a>(&'a AtomicUsize);
+
+impl Drop for Alive<'_> {
+    fn drop(&mut self) {
+        self.0.fetch_sub(1, Ordering::Relaxed);
+    }
+}
+
+impl Workers {
+    /// Starts `count` workers. Evaluations a dead process left running are
     /// recovered first.
-    pub async fn start(store: Store, config: QueueConfig) -> Result<Queue, StoreError> {
+    pub async fn start(
+        store: Store,
+        sandbox: Sandbox,
+        count: usize,
+    ) -> Result<Workers, StoreError> {
         let (requeued, failed) = store.recover_interrupted().await?;
         if requeued + failed > 0 {
             tracing::info!(
@@ -59,7 +61,7 @@ impl Queue {
         }
         let inner = Arc::new(Inner {
             store,
-            config,
+            sandbox,
             instance: Uuid::now_v7(),
             wake: Notify::new(),
             running: Mutex::new(HashMap::new()),
@@ -67,11 +69,11 @@ impl Queue {
             alive: AtomicUsize::new(0),
             handles: Mutex::new(Vec::new()),
         });
-        let handles = (0..inner.config.workers.max(1))
+        let handles = (0..count.max(1))
             .map(|n| tokio::spawn(worker(inner.clone(), n)))
             .collect();
         *inner.handles.lock().unwrap_or_else(|p| p.into_inner()) = handles;
-        Ok(Queue { inner })
+        Ok(Workers { inner })
     }
 
     /// Tells an idle worker that a new evaluation is queued.
@@ -86,22 +88,8 @@ impl Queue {
         }
     }
 
-    pub fn workers_alive(&self) -> bool {
-        self.inner.alive.load(Ordering::Relaxed) > 0
-    }
-
-    /// Runs an engine check (an upload or an evaluation about to be queued)
-    /// in a child under the evaluation limits.
-    pub async fn check(&self, task: &Task) -> std::io::Result<Ended> {
-        let never = CancellationToken::new();
-        child::run(
-            &self.inner.config.exe,
-            task,
-            &self.inner.config.limits,
-            &never,
-            |_, _, _| {},
-        )
-        .await
+    pub fn alive(&self) -> usize {
+        self.inner.alive.load(Ordering::Relaxed)
     }
 
     /// Stops the workers: running evaluations are put back in the queue.
@@ -125,6 +113,7 @@ impl Inner {
 
 async fn worker(inner: Arc<Inner>, n: usize) {
     inner.alive.fetch_add(1, Ordering::Relaxed);
+    let _alive = Alive(&inner.alive);
     let owner = format!("{}/{n}", inner.instance);
     while !inner.shutdown.is_cancelled() {
         match inner.store.claim_next(&owner).await {
@@ -142,7 +131,6 @@ async fn worker(inner: Arc<Inner>, n: usize) {
             }
         }
     }
-    inner.alive.fetch_sub(1, Ordering::Relaxed);
 }
 
 async fn run_one(inner: &Arc<Inner>, owner: &str, record: EvaluationRecord) {
@@ -167,34 +155,24 @@ async fn execute(
 ) -> Result<(), StoreError> {
     let store = &inner.store;
     let id = record.id;
-    let students = store.students_of(id).await?;
-    let parts = JobParts {
-        id,
-        project: &record.project,
-        created_at: record.created_at,
-        teacher: record.teacher,
-        students: &students,
-        dataset: record.dataset,
-        request: &record.request,
-    };
-    let job = match build_job(store, parts).await {
+    // A cancel that landed between the claim and the registration of this
+    // evaluation's token found nothing to stop: look again now.
+    if store
+        .evaluation(id)
+        .await?
+        .is_none_or(|e| e.status != Status::Running)
+    {
+        tracing::info!("canceled before it started");
+        return Ok(());
+    }
+    let job = match store.job(record).await {
         Ok(job) => job,
         Err(e) => {
             tracing::error!(error = %e, "preparing the evaluation failed");
-            let p = problem(
-                500,
-                "the evaluation could not be prepared; see the service log",
-                None,
-            );
+            let p = AppError::from(e).problem();
             store.finish_failed(id, owner, &p).await?;
             return Ok(());
         }
-    };
-    let task = Task::Evaluate {
-        job: Box::new(job),
-        teacher_cache: Some(store.blobs.teacher_scores_dir()),
-        offline_threads: inner.config.offline_threads,
-        cpu_lock: Some(store.blobs.cpu_lock_path()),
     };
     let (tx, mut rx) = watch::channel(None::<Progress>);
     let writer = {
@@ -211,121 +189,36 @@ async fn execute(
             }
         })
     };
-    let ended = child::run(
-        &inner.config.exe,
-        &task,
-        &inner.config.limits,
-        token,
-        |stage, done, total| {
-            let stage = serde_json::to_value(stage)
-                .ok()
-                .and_then(|v| v.as_str().map(str::to_string));
+    let ran = inner
+        .sandbox
+        .run_evaluation(&job, token, |stage, done, total| {
             let _ = tx.send(Some(Progress { stage, done, total }));
-        },
-    )
-    .await;
+        })
+        .await;
     drop(tx);
     let _ = writer.await;
-    let limit_s = inner.config.limits.wall_time.as_secs();
-    match ended {
-        Ok(Ended::Answer(Message::Report(report))) => {
-            if !store.finish_succeeded(id, owner, &report).await? {
+    match ran {
+        Ok(done) => {
+            if !store
+                .finish_succeeded(id, owner, &done.report, &done.rounds)
+                .await?
+            {
                 tracing::info!("finished after being canceled; the report is dropped");
             }
         }
-        Ok(Ended::Answer(Message::Failed(f))) => {
-            let status = match f.kind {
-                FailureKind::Io => 500,
-                _ => 422,
-            };
-            store
-                .finish_failed(id, owner, &problem(status, &f.message, f.field.as_deref()))
-                .await?;
-        }
-        Ok(Ended::Answer(other)) => {
-            tracing::error!(
-                ?other,
-                "the engine process answered an evaluation with something else"
-            );
-            store
-                .finish_failed(id, owner, &problem(500, "the engine gave no report", None))
-                .await?;
-        }
-        Ok(Ended::Canceled) if inner.shutdown.is_cancelled() => {
+        Err(SandboxError::Canceled) if inner.shutdown.is_cancelled() => {
             tracing::info!("shutting down: the evaluation goes back to the queue");
             store.requeue(id, owner).await?;
         }
-        Ok(Ended::Canceled) => tracing::info!("canceled"),
-        Ok(Ended::TimedOut) => {
-            let detail = format!("the evaluation took longer than its limit of {limit_s} s");
-            store
-                .finish_failed(id, owner, &problem(422, &detail, None))
-                .await?;
-        }
-        Ok(Ended::Crashed(how)) => {
-            store
-                .finish_failed(id, owner, &problem(422, &how, None))
-                .await?;
-        }
+        Err(SandboxError::Canceled) => tracing::info!("canceled"),
         Err(e) => {
-            tracing::error!(error = %e, "starting the engine process failed");
-            let p = problem(500, "the engine process could not be started", None);
-            store.finish_failed(id, owner, &p).await?;
+            let error = AppError::from(e);
+            if error.status_code() >= 500 {
+                tracing::error!(cause = %error, "the evaluation failed on our side");
+            }
+            let problem: Problem = error.problem();
+            store.finish_failed(id, owner, &problem).await?;
         }
     }
     Ok(())
-}
-
-/// What identifies an evaluation's inputs, stored or about to be.
-pub struct JobParts<'a> {
-    pub id: Uuid,
-    pub project: &'a str,
-    pub created_at: time::OffsetDateTime,
-    pub teacher: Uuid,
-    pub students: &'a [Uuid],
-    pub dataset: Uuid,
-    /// The request as applied; its settings fields are read.
-    pub request: &'a serde_json::Value,
-}
-
-/// Everything the engine needs, from the stored records.
-pub async fn build_job(store: &Store, parts: JobParts<'_>) -> Result<Job, StoreError> {
-    let missing =
-        |what: String| StoreError::Corrupt(format!("{what} is referenced but not stored"));
-    let model = |id: Uuid| async move {
-        let m = store
-            .model(id)
-            .await?
-            .ok_or_else(|| missing(format!("model {id}")))?;
-        Ok::<_, StoreError>(ModelRef {
-            path: store.blobs.path_of(BlobKind::Model, &m.sha256),
-            id: m.id,
-            name: m.name,
-            sha256: m.sha256,
-            bytes: m.bytes,
-        })
-    };
-    let teacher = model(parts.teacher).await?;
-    let mut students = Vec::with_capacity(parts.students.len());
-    for &sid in parts.students {
-        students.push(model(sid).await?);
-    }
-    let d = store
-        .dataset(parts.dataset)
-        .await?
-        .ok_or_else(|| missing(format!("dataset {}", parts.dataset)))?;
-    Ok(Job {
-        evaluation: parts.id,
-        project: parts.project.to_string(),
-        created_at: parts.created_at,
-        teacher,
-        students,
-        dataset: DatasetRef {
-            path: store.blobs.path_of(BlobKind::Dataset, &d.sha256),
-            id: d.id,
-            name: d.name,
-            sha256: d.sha256,
-        },
-        settings: serde_json::from_value::<Settings>(parts.request.clone())?,
-    })
 }

@@ -8,10 +8,11 @@ use uuid::Uuid;
 
 use crate::engine::environment::Environment;
 use crate::engine::gates::GateOutcome;
+use crate::engine::gates::Gates;
 use crate::engine::logits::OutputKind;
 use crate::engine::metrics::accuracy::{Accuracy, StudentAccuracy};
 use crate::engine::metrics::fidelity::Fidelity;
-use crate::engine::settings::{Gates, LatencySettings, RankBy};
+use crate::engine::settings::{LatencySettings, OutputChoice, RankBy};
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Report {
@@ -38,7 +39,7 @@ pub struct ReportSettings {
     pub latency: LatencySettings,
     pub rank_by: RankBy,
     pub gates: Gates,
-    pub output: Option<String>,
+    pub output: Option<OutputChoice>,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -93,6 +94,8 @@ pub struct StudentLatency {
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct TeacherEntry {
     pub model: ModelSummary,
+    /// The name of the scored output.
+    pub output: String,
     pub output_kind: OutputKind,
     pub accuracy: Option<Accuracy>,
     pub size: TeacherSize,
@@ -103,6 +106,8 @@ pub struct TeacherEntry {
 pub struct Candidate {
     pub rank: u32,
     pub model: ModelSummary,
+    /// The name of the scored output.
+    pub output: String,
     pub output_kind: OutputKind,
     pub fidelity: Fidelity,
     pub accuracy: Option<StudentAccuracy>,

@@ -10,7 +10,17 @@ use crate::store::{EvaluationRecord, EvaluationRow, ModelRecord, Page, TrendPoin
 pub struct EvaluationView {
     pub record: EvaluationRecord,
     pub teacher: ModelRecord,
-    pub report: Option<Report>,
+    pub report: ReportView,
+}
+
+/// An evaluation's report as the page can show it.
+pub enum ReportView {
+    /// Not there yet (or never: failed, canceled).
+    Missing,
+    Shown(Box<Report>),
+    /// Written by an earlier version whose shape this one does not read;
+    /// the JSON report still serves it as stored.
+    Unreadable,
 }
 
 pub struct TeacherView {
@@ -43,10 +53,14 @@ impl App {
         let record = self.evaluation(id).await?;
         let teacher = self.model(record.teacher).await?;
         let report = match self.store.report(id).await? {
-            Some(body) => {
-                Some(serde_json::from_str(&body).map_err(|e| AppError::Internal(e.to_string()))?)
-            }
-            None => None,
+            None => ReportView::Missing,
+            Some(body) => match serde_json::from_str(&body) {
+                Ok(report) => ReportView::Shown(Box::new(report)),
+                Err(e) => {
+                    tracing::info!(%id, error = %e, "a stored report does not read as this version's");
+                    ReportView::Unreadable
+                }
+            },
         };
         Ok(EvaluationView {
             record,

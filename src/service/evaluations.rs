@@ -1,26 +1,34 @@
 //! Creating, reading, listing and canceling evaluations. Creation checks
-//! everything that can be checked before running, so that a queued
-//! evaluation fails only for reasons that running reveals.
+//! everything that can be checked before running, from the records the
+//! uploads left, so that a queued evaluation fails only for reasons that
+//! running reveals.
 
-use serde::Deserialize;
-use serde_json::{Map, Value, json};
+use std::collections::BTreeMap;
+
+use serde::{Deserialize, Serialize};
 use time::OffsetDateTime;
 use uuid::Uuid;
 
 use super::App;
-use crate::engine::settings::{Gates, LatencySettings, OutputKinds, RankBy, Settings};
+use crate::engine::dataset::DatasetInfo;
+use crate::engine::fit::{Entrant, Fit, fit};
+use crate::engine::gates::Gates;
+use crate::engine::settings::{LatencySettings, OutputChoice, OutputKinds, RankBy, Settings};
+use crate::engine::{EngineError, Job};
 use crate::error::AppError;
-use crate::queue::child::Ended;
-use crate::queue::protocol::{Message, Task};
-use crate::queue::{JobParts, build_job};
-use crate::store::{CancelOutcome, EvaluationFilter, EvaluationRecord, NewEvaluation, Page};
+use crate::sandbox::SandboxError;
+use crate::store::{
+    AppliedRequest, CancelOutcome, DatasetRecord, EvaluationFilter, EvaluationRecord, ModelRecord,
+    NewEvaluation, Page,
+};
 
 fn default_project() -> String {
     "default".into()
 }
 
-/// The body of `POST /v1/evaluations`; omitted settings take their defaults.
-#[derive(Debug, Deserialize)]
+/// The body of `POST /v1/evaluations`; omitted settings take their
+/// defaults. The command-line client sends the same type.
+#[derive(Debug, Clone, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct EvaluationRequest {
     #[serde(default = "default_project")]
@@ -28,29 +36,51 @@ pub struct EvaluationRequest {
     pub teacher: Uuid,
     pub students: Vec<Uuid>,
     pub dataset: Uuid,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
     pub temperature: Option<f64>,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
     pub alpha: Option<f64>,
-    #[serde(default)]
-    pub output: Option<String>,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub output: Option<OutputChoice>,
     #[serde(default)]
     pub output_kind: OutputKinds,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
     pub batch_size: Option<u32>,
     #[serde(default)]
     pub latency: LatencySettings,
     #[serde(default)]
     pub rank_by: RankBy,
     #[serde(default)]
-    pub gates: Map<String, Value>,
+    pub gates: Gates,
     #[serde(default)]
-    pub tags: Map<String, Value>,
+    pub tags: BTreeMap<String, String>,
 }
 
 impl EvaluationRequest {
-    fn settings(&self) -> Result<Settings, AppError> {
+    /// A request with every setting at its default.
+    pub fn new(teacher: Uuid, students: Vec<Uuid>, dataset: Uuid) -> Self {
+        EvaluationRequest {
+            project: default_project(),
+            teacher,
+            students,
+            dataset,
+            temperature: None,
+            alpha: None,
+            output: None,
+            output_kind: OutputKinds::default(),
+            batch_size: None,
+            latency: LatencySettings::default(),
+            rank_by: RankBy::default(),
+            gates: Gates::default(),
+            tags: BTreeMap::new(),
+        }
+    }
+}
+
+impl EvaluationRequest {
+    fn settings(&self) -> Settings {
         let d = Settings::default();
-        let gates = Gates::parse(&self.gates)
-            .map_err(|e| AppError::unprocessable(e.message, Some(&e.field)))?;
-        Ok(Settings {
+        Settings {
             temperature: self.temperature.unwrap_or(d.temperature),
             alpha: self.alpha.unwrap_or(d.alpha),
             output: self.output.clone(),
@@ -58,8 +88,8 @@ impl EvaluationRequest {
             batch_size: self.batch_size.unwrap_or(d.batch_size),
             latency: self.latency,
             rank_by: self.rank_by,
-            gates,
-        })
+            gates: self.gates.clone(),
+        }
     }
 }
 
@@ -69,6 +99,15 @@ pub struct ListQuery {
     pub filter: EvaluationFilter,
     pub limit: u32,
     pub cursor: Option<Uuid>,
+}
+
+/// An engine refusal, as the answer to a request.
+fn refused(e: EngineError) -> AppError {
+    match e {
+        EngineError::Settings(s) => AppError::unprocessable(s.message, Some(&s.field)),
+        EngineError::Io { .. } => AppError::internal(e),
+        other => AppError::unprocessable(other.to_string(), None),
+    }
 }
 
 impl App {
@@ -88,25 +127,11 @@ impl App {
                 Some("students"),
             ));
         }
-        for (key, value) in &req.tags {
-            if !value.is_string() {
-                let field = format!("tags.{key}");
-                return Err(AppError::unprocessable(
-                    "tag values must be strings",
-                    Some(&field),
-                ));
-            }
-        }
-        let settings = req.settings()?;
-        let teacher = self.store.model(req.teacher).await?.ok_or_else(|| {
-            AppError::unprocessable(format!("no model has id {}", req.teacher), Some("teacher"))
-        })?;
+        let settings = req.settings();
+        let teacher = self.named_model(req.teacher, "teacher").await?;
         let mut students = Vec::with_capacity(req.students.len());
         for (i, sid) in req.students.iter().enumerate() {
-            let field = format!("students[{i}]");
-            students.push(self.store.model(*sid).await?.ok_or_else(|| {
-                AppError::unprocessable(format!("no model has id {sid}"), Some(&field))
-            })?);
+            students.push(self.named_model(*sid, &format!("students[{i}]")).await?);
         }
         let dataset = self.store.dataset(req.dataset).await?.ok_or_else(|| {
             AppError::unprocessable(
@@ -115,66 +140,75 @@ impl App {
             )
         })?;
         settings
-            .check(dataset.has_labels)
+            .validate(dataset.has_labels)
             .map_err(|e| AppError::unprocessable(e.message, Some(&e.field)))?;
-
-        let id = Uuid::now_v7();
-        let created_at = OffsetDateTime::now_utc();
-        let mut applied =
-            serde_json::to_value(&settings).map_err(|e| AppError::Internal(e.to_string()))?;
-        applied["project"] = json!(req.project);
-        applied["teacher"] = json!(teacher.id);
-        applied["students"] = json!(req.students);
-        applied["dataset"] = json!(dataset.id);
-        applied["tags"] = Value::Object(req.tags.clone());
         let new = NewEvaluation {
-            id,
-            project: req.project.clone(),
-            teacher: teacher.id,
-            students: req.students.clone(),
-            dataset: dataset.id,
-            request: applied,
-            tags: req.tags,
-            created_at,
+            id: Uuid::now_v7(),
+            created_at: OffsetDateTime::now_utc(),
+            request: AppliedRequest {
+                project: req.project,
+                teacher: teacher.id,
+                students: req.students,
+                dataset: dataset.id,
+                settings,
+                tags: req.tags,
+            },
         };
-        self.check_fit(&new).await?;
+        self.check_fit(&new, &teacher, &students, &dataset).await?;
         let record = self.store.create_evaluation(&new).await?;
-        self.queue.wake();
+        self.workers.wake();
         Ok(record)
     }
 
-    /// Runs the engine's pre-run checks (fit, class counts, labels) in a child.
-    async fn check_fit(&self, new: &NewEvaluation) -> Result<(), AppError> {
-        let parts = JobParts {
-            id: new.id,
-            project: &new.project,
-            created_at: new.created_at,
-            teacher: new.teacher,
-            students: &new.students,
-            dataset: new.dataset,
-            request: &new.request,
+    async fn named_model(&self, id: Uuid, field: &str) -> Result<ModelRecord, AppError> {
+        self.store
+            .model(id)
+            .await?
+            .ok_or_else(|| AppError::unprocessable(format!("no model has id {id}"), Some(field)))
+    }
+
+    /// Checks from the upload records that the set fits every model and
+    /// that they agree on the classes. Only when the records leave that
+    /// open (a class axis sized by the set, a set recorded before its
+    /// largest label was) do the models have to be loaded, in the sandbox.
+    async fn check_fit(
+        &self,
+        new: &NewEvaluation,
+        teacher: &ModelRecord,
+        students: &[ModelRecord],
+        dataset: &DatasetRecord,
+    ) -> Result<(), AppError> {
+        let output = new.request.settings.output.as_ref();
+        let models: Vec<Entrant<'_>> = std::iter::once(teacher)
+            .chain(students)
+            .map(|m| Entrant {
+                name: &m.name,
+                info: &m.info,
+                output: output.and_then(|o| o.for_model(m.id)),
+            })
+            .collect();
+        let info = DatasetInfo {
+            samples: dataset.samples as usize,
+            arrays: dataset.arrays.clone(),
+            has_labels: dataset.has_labels,
+            largest_label: dataset.largest_label,
         };
-        let job = build_job(&self.store, parts).await?;
-        let ended = self
-            .queue
-            .check(&Task::Check { job: Box::new(job) })
-            .await
-            .map_err(|e| AppError::Internal(format!("starting the engine process failed: {e}")))?;
-        match ended {
-            Ended::Answer(Message::Checked) => Ok(()),
-            Ended::Answer(Message::Failed(f)) => {
-                Err(AppError::unprocessable(f.message, f.field.as_deref()))
+        let why = match fit(&models, &info).map_err(refused)? {
+            Fit::Fits { .. } if !dataset.has_labels || dataset.largest_label.is_some() => {
+                return Ok(());
             }
-            Ended::Answer(other) => Err(AppError::Internal(format!(
-                "unexpected check answer {other:?}"
-            ))),
-            Ended::TimedOut => Err(AppError::unprocessable(
-                "checking the models took longer than the limit",
-                None,
-            )),
-            Ended::Crashed(how) => Err(AppError::unprocessable(how, None)),
-            Ended::Canceled => Err(AppError::Unavailable("the service is shutting down".into())),
-        }
+            Fit::Fits { .. } => "the set was uploaded before its largest label was recorded".into(),
+            Fit::Undecided(why) => why,
+        };
+        tracing::debug!(%why, "loading the models to check a new evaluation");
+        let job: Job = self
+            .store
+            .job_for(new.id, new.created_at, &new.request)
+            .await?;
+        self.sandbox
+            .preflight(&job)
+            .await
+            .map_err(|e: SandboxError| e.into())
     }
 
     pub async fn evaluation(&self, id: Uuid) -> Result<EvaluationRecord, AppError> {
@@ -196,17 +230,14 @@ impl App {
         let record = self.evaluation(id).await?;
         match self.store.report(id).await? {
             Some(body) => Ok(body),
-            None => Err(AppError::Conflict(format!(
-                "evaluation {id} is {}; its report exists once it has succeeded",
-                record.status.as_str()
-            ))),
+            None => Err(not_yet(&record)),
         }
     }
 
     pub async fn cancel_evaluation(&self, id: Uuid) -> Result<EvaluationRecord, AppError> {
         match self.store.cancel(id).await? {
             CancelOutcome::Canceled(record) => {
-                self.queue.stop(id);
+                self.workers.stop(id);
                 Ok(record)
             }
             CancelOutcome::AlreadyFinished(r) => Err(AppError::Conflict(format!(
@@ -218,4 +249,13 @@ impl App {
             }
         }
     }
+}
+
+/// The 409 of a report or timings asked for before the evaluation succeeded.
+fn not_yet(record: &EvaluationRecord) -> AppError {
+    AppError::Conflict(format!(
+        "evaluation {} is {}; its report exists once it has succeeded",
+        record.id,
+        record.status.as_str()
+    ))
 }

@@ -5,11 +5,12 @@ mod dashboard;
 mod evaluations;
 mod uploads;
 
-pub use dashboard::{EvaluationView, ListView, TeacherView};
+pub use dashboard::{EvaluationView, ListView, ReportView, TeacherView};
 pub use evaluations::{EvaluationRequest, ListQuery};
 pub use uploads::{Upload, Uploaded};
 
-use crate::queue::Queue;
+use crate::queue::Workers;
+use crate::sandbox::Sandbox;
 use crate::store::Store;
 
 #[derive(Debug, Clone)]
@@ -21,6 +22,7 @@ pub struct ServiceConfig {
 #[derive(Clone)]
 pub struct App {
     pub store: Store,
-    pub queue: Queue,
+    pub sandbox: Sandbox,
+    pub workers: Workers,
     pub config: ServiceConfig,
 }

@@ -1,5 +1,7 @@
 //! Uploads of models and evaluation sets: streamed to disk while hashed,
-//! checked by the engine in a child process, then stored by content.
+//! inspected by the engine in the sandbox, then stored by content.
+
+use std::path::Path;
 
 use bytes::Bytes;
 use futures_util::{Stream, StreamExt};
@@ -7,11 +9,10 @@ use time::OffsetDateTime;
 use uuid::Uuid;
 
 use super::App;
+use crate::engine::dataset::DatasetInfo;
+use crate::engine::model::ModelInfo;
 use crate::error::AppError;
-use crate::queue::child::Ended;
-use crate::queue::protocol::{Message, Task};
-use std::path::PathBuf;
-
+use crate::sandbox::{Sandbox, SandboxError};
 use crate::store::{BlobKind, DatasetRecord, ModelRecord, Received, Store, StoreError};
 
 /// A stored record and whether this upload created it.
@@ -58,33 +59,9 @@ impl App {
         Ok(incoming.finish().await?)
     }
 
-    /// Runs an upload check in a child; any refusal becomes a 422.
-    async fn inspect(&self, task: Task, received: &Received) -> Result<Message, AppError> {
-        let ended =
-            self.queue.check(&task).await.map_err(|e| {
-                AppError::Internal(format!("starting the engine process failed: {e}"))
-            });
-        let refuse = |detail: String| AppError::unprocessable(detail, None);
-        let outcome = match ended? {
-            Ended::Answer(Message::Failed(f)) => Err(refuse(f.message)),
-            Ended::Answer(m) => Ok(m),
-            Ended::TimedOut => Err(refuse(
-                "checking the upload took longer than the limit".into(),
-            )),
-            Ended::Crashed(how) => Err(refuse(format!(
-                "the engine could not load the upload: {how}"
-            ))),
-            Ended::Canceled => Err(AppError::Unavailable("the service is shutting down".into())),
-        };
-        if outcome.is_err() {
-            self.store.blobs.discard(received).await;
-        }
-        outcome
-    }
-
     /// Stores an upload of kind `K`: streamed and hashed, answered from the
-    /// store when the same bytes are already there, else checked by the
-    /// engine in a child and recorded.
+    /// store when the same bytes are already there, else inspected by the
+    /// engine and recorded.
     pub async fn upload<K: Upload, S, E>(
         &self,
         name: String,
@@ -103,10 +80,14 @@ impl App {
                 created: false,
             });
         }
-        let answer = self
-            .inspect(K::check(received.path.clone()), &received)
-            .await?;
-        let record = K::record(name, &received, answer)?;
+        let info = match K::inspect(&self.sandbox, &received.path).await {
+            Ok(info) => info,
+            Err(e) => {
+                self.store.blobs.discard(&received).await;
+                return Err(e.into());
+            }
+        };
+        let record = K::record(name, &received, info);
         self.store.blobs.commit(K::BLOB, &received).await?;
         let (record, created) = K::insert(&self.store, &record).await?;
         Ok(Uploaded { record, created })
@@ -116,10 +97,14 @@ impl App {
 /// What differs between model and evaluation-set uploads.
 pub trait Upload: Sized {
     const BLOB: BlobKind;
-    /// The engine task that checks an upload of this kind.
-    fn check(path: PathBuf) -> Task;
-    /// The record of a checked upload, from the engine's answer.
-    fn record(name: String, received: &Received, answer: Message) -> Result<Self, AppError>;
+    /// What the engine learns of an upload of this kind.
+    type Info;
+    fn inspect(
+        sandbox: &Sandbox,
+        path: &Path,
+    ) -> impl Future<Output = Result<Self::Info, SandboxError>> + Send;
+    /// The record of an inspected upload.
+    fn record(name: String, received: &Received, info: Self::Info) -> Self;
     fn stored(
         store: &Store,
         sha256: &str,
@@ -130,29 +115,26 @@ pub trait Upload: Sized {
     ) -> impl Future<Output = Result<(Self, bool), StoreError>> + Send;
 }
 
-fn unexpected(answer: Message) -> AppError {
-    AppError::Internal(format!("unexpected check answer {answer:?}"))
-}
-
 impl Upload for ModelRecord {
     const BLOB: BlobKind = BlobKind::Model;
+    type Info = ModelInfo;
 
-    fn check(path: PathBuf) -> Task {
-        Task::InspectModel { path }
+    fn inspect(
+        sandbox: &Sandbox,
+        path: &Path,
+    ) -> impl Future<Output = Result<ModelInfo, SandboxError>> + Send {
+        sandbox.inspect_model(path)
     }
 
-    fn record(name: String, received: &Received, answer: Message) -> Result<Self, AppError> {
-        let Message::Model(info) = answer else {
-            return Err(unexpected(answer));
-        };
-        Ok(ModelRecord {
+    fn record(name: String, received: &Received, info: ModelInfo) -> Self {
+        ModelRecord {
             id: Uuid::now_v7(),
             name,
             sha256: received.sha256.clone(),
             bytes: received.bytes,
-            info: *info,
+            info,
             created_at: OffsetDateTime::now_utc(),
-        })
+        }
     }
 
     fn stored(
@@ -172,16 +154,17 @@ impl Upload for ModelRecord {
 
 impl Upload for DatasetRecord {
     const BLOB: BlobKind = BlobKind::Dataset;
+    type Info = DatasetInfo;
 
-    fn check(path: PathBuf) -> Task {
-        Task::InspectDataset { path }
+    fn inspect(
+        sandbox: &Sandbox,
+        path: &Path,
+    ) -> impl Future<Output = Result<DatasetInfo, SandboxError>> + Send {
+        sandbox.inspect_dataset(path)
     }
 
-    fn record(name: String, received: &Received, answer: Message) -> Result<Self, AppError> {
-        let Message::Dataset(info) = answer else {
-            return Err(unexpected(answer));
-        };
-        Ok(DatasetRecord {
+    fn record(name: String, received: &Received, info: DatasetInfo) -> Self {
+        DatasetRecord {
             id: Uuid::now_v7(),
             name,
             sha256: received.sha256.clone(),
@@ -189,8 +172,9 @@ impl Upload for DatasetRecord {
             samples: info.samples as u64,
             arrays: info.arrays,
             has_labels: info.has_labels,
+            largest_label: info.largest_label,
             created_at: OffsetDateTime::now_utc(),
-        })
+        }
     }
 
     fn stored(

@@ -88,7 +88,7 @@ impl Blobs {
         self.root.join("teacher-scores")
     }
 
-    /// The file evaluations lock to share the CPU (see `queue::cpu_lock`).
+    /// The file evaluations lock to share the CPU (see `sandbox::cpu_lock`).
     pub fn cpu_lock_path(&self) -> PathBuf {
         self.root.join("cpu.lock")
     }
@@ -153,8 +153,8 @@ impl Incoming {
     async fn stopped_writer(&mut self) -> StoreError {
         match (&mut self.writer).await {
             Ok(Err(e)) => StoreError::Io(e),
-            Ok(Ok(_)) => StoreError::Corrupt("the blob writer ended early".into()),
-            Err(e) => StoreError::Corrupt(format!("the blob writer failed: {e}")),
+            Ok(Ok(_)) => StoreError::Io(std::io::Error::other("the blob writer ended early")),
+            Err(e) => StoreError::Writer(e),
         }
     }
 
@@ -166,9 +166,7 @@ impl Incoming {
             writer,
         } = self;
         drop(chunks);
-        let sha256 = writer
-            .await
-            .map_err(|e| StoreError::Corrupt(format!("the blob writer failed: {e}")))??;
+        let sha256 = writer.await??;
         Ok(Received {
             path,
             sha256,

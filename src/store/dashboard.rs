@@ -3,12 +3,12 @@
 //! `candidates`, never the report bodies.
 
 use serde::Serialize;
-use sqlx::Row;
-use sqlx::sqlite::SqliteRow;
 use time::OffsetDateTime;
 use uuid::Uuid;
 
-use super::{EvaluationFilter, Page, Status, Store, StoreError, bind_filter, page, parse_time};
+use super::rows::{stage, verdict};
+use super::{EvaluationFilter, Page, Status, Store, StoreError, bind_filter, page};
+use crate::engine::Stage;
 use crate::report::Verdict;
 
 /// One line of the evaluations page.
@@ -17,7 +17,7 @@ pub struct EvaluationRow {
     pub id: Uuid,
     pub project: String,
     pub status: Status,
-    pub stage: Option<String>,
+    pub stage: Stage,
     pub done: u64,
     pub total: u64,
     pub created_at: OffsetDateTime,
@@ -29,7 +29,7 @@ pub struct EvaluationRow {
 }
 
 /// The recommended candidate of one succeeded evaluation, for trends.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, sqlx::FromRow)]
 pub struct TrendPoint {
     pub evaluation: Uuid,
     pub created_at: OffsetDateTime,
@@ -38,33 +38,42 @@ pub struct TrendPoint {
     pub p90_ms: f64,
 }
 
-fn row_from(row: &SqliteRow) -> Result<EvaluationRow, StoreError> {
-    let status: String = row.try_get("status")?;
-    let recommended = match (
-        row.try_get::<Option<String>, _>("recommended_id")?,
-        row.try_get::<Option<String>, _>("recommended_name")?,
-    ) {
-        (Some(id), Some(name)) => Some((Uuid::parse_str(&id)?, name)),
-        _ => None,
-    };
-    Ok(EvaluationRow {
-        id: Uuid::parse_str(row.try_get("id")?)?,
-        project: row.try_get("project")?,
-        status: Status::parse(&status)
-            .ok_or_else(|| StoreError::Corrupt(format!("status {status}")))?,
-        stage: row.try_get("progress_stage")?,
-        done: row.try_get::<i64, _>("progress_done")? as u64,
-        total: row.try_get::<i64, _>("progress_total")? as u64,
-        created_at: parse_time(row.try_get("created_at")?)?,
-        verdict: row
-            .try_get::<Option<String>, _>("verdict")?
-            .as_deref()
-            .and_then(Verdict::parse),
-        teacher: Uuid::parse_str(row.try_get("teacher_id")?)?,
-        teacher_name: row.try_get("teacher_name")?,
-        candidates: row.try_get::<i64, _>("candidates")? as u64,
-        recommended,
-    })
+#[derive(sqlx::FromRow)]
+struct ListRow {
+    id: Uuid,
+    project: String,
+    status: Status,
+    progress_stage: Option<String>,
+    progress_done: i64,
+    progress_total: i64,
+    created_at: OffsetDateTime,
+    verdict: Option<String>,
+    teacher_id: Uuid,
+    teacher_name: String,
+    recommended_id: Option<Uuid>,
+    recommended_name: Option<String>,
+    candidates: i64,
+}
+
+impl TryFrom<ListRow> for EvaluationRow {
+    type Error = StoreError;
+
+    fn try_from(r: ListRow) -> Result<Self, StoreError> {
+        Ok(EvaluationRow {
+            id: r.id,
+            project: r.project,
+            status: r.status,
+            stage: stage(r.progress_stage.as_deref())?,
+            done: r.progress_done as u64,
+            total: r.progress_total as u64,
+            created_at: r.created_at,
+            verdict: verdict(r.verdict.as_deref())?,
+            teacher: r.teacher_id,
+            teacher_name: r.teacher_name,
+            candidates: r.candidates as u64,
+            recommended: r.recommended_id.zip(r.recommended_name),
+        })
+    }
 }
 
 impl Store {
@@ -74,7 +83,7 @@ impl Store {
         limit: u32,
         cursor: Option<Uuid>,
     ) -> Result<Page<EvaluationRow>, StoreError> {
-        let q = sqlx::query(concat!(
+        let q = sqlx::query_as(concat!(
             "SELECT e.id, e.project, e.status, e.progress_stage, e.progress_done, e.progress_total,",
             " e.created_at, e.verdict, e.teacher_id, t.name AS teacher_name, e.recommended_id,",
             " r.name AS recommended_name,",
@@ -83,55 +92,43 @@ impl Store {
             " LEFT JOIN models r ON r.id = e.recommended_id",
             evaluation_filter!()
         ));
-        let rows = bind_filter(q, f, limit, cursor)
+        let rows: Vec<ListRow> = bind_filter(q, f, limit, cursor)
             .fetch_all(&self.pool)
             .await?;
-        let items = rows.iter().map(row_from).collect::<Result<Vec<_>, _>>()?;
-        Ok(page(items, limit, |r| r.id.to_string()))
+        let items = rows
+            .into_iter()
+            .map(EvaluationRow::try_from)
+            .collect::<Result<Vec<_>, _>>()?;
+        Ok(page(items, limit, |r| r.id))
     }
 
     /// The recommended candidate of each succeeded, go evaluation of a
     /// teacher, oldest first.
     pub async fn teacher_trend(&self, teacher: Uuid) -> Result<Vec<TrendPoint>, StoreError> {
-        let rows = sqlx::query(concat!(
-            "SELECT e.id, e.created_at, m.name, c.agreement, c.p90_ms FROM evaluations e",
+        Ok(sqlx::query_as(concat!(
+            "SELECT e.id AS evaluation, e.created_at, m.name AS model, c.agreement, c.p90_ms",
+            " FROM evaluations e",
             " JOIN candidates c ON c.evaluation_id = e.id AND c.rank = 1 AND c.passed = 1",
             " JOIN models m ON m.id = c.model_id",
             " WHERE e.teacher_id = ?1 AND e.status = 'succeeded' ORDER BY e.id"
         ))
-        .bind(teacher.to_string())
+        .bind(teacher)
         .fetch_all(&self.pool)
-        .await?;
-        rows.iter()
-            .map(|r| {
-                Ok(TrendPoint {
-                    evaluation: Uuid::parse_str(r.try_get("id")?)?,
-                    created_at: parse_time(r.try_get("created_at")?)?,
-                    model: r.try_get("name")?,
-                    agreement: r.try_get("agreement")?,
-                    p90_ms: r.try_get("p90_ms")?,
-                })
-            })
-            .collect()
+        .await?)
     }
 
     /// Projects and teachers that have evaluations, for the filter menus.
     pub async fn filter_choices(&self) -> Result<(Vec<String>, Vec<(Uuid, String)>), StoreError> {
-        let projects = sqlx::query("SELECT DISTINCT project FROM evaluations ORDER BY project")
-            .fetch_all(&self.pool)
-            .await?
-            .iter()
-            .map(|r| r.try_get("project"))
-            .collect::<Result<Vec<String>, _>>()?;
-        let teachers = sqlx::query(
+        let projects: Vec<(String,)> =
+            sqlx::query_as("SELECT DISTINCT project FROM evaluations ORDER BY project")
+                .fetch_all(&self.pool)
+                .await?;
+        let teachers: Vec<(Uuid, String)> = sqlx::query_as(
             "SELECT DISTINCT m.id, m.name FROM evaluations e JOIN models m ON m.id = e.teacher_id \
              ORDER BY m.name",
         )
         .fetch_all(&self.pool)
-        .await?
-        .iter()
-        .map(|r| Ok((Uuid::parse_str(r.try_get("id")?)?, r.try_get("name")?)))
-        .collect::<Result<Vec<_>, StoreError>>()?;
-        Ok((projects, teachers))
+        .await?;
+        Ok((projects.into_iter().map(|(p,)| p).collect(), teachers))
     }
 }

@@ -10,24 +10,9 @@ pub enum StoreError {
     Migrate(#[from] sqlx::migrate::MigrateError),
     #[error("blob files: {0}")]
     Io(#[from] std::io::Error),
+    /// The thread that writes an upload's blob panicked or was cancelled.
+    #[error("the blob writer stopped: {0}")]
+    Writer(#[from] tokio::task::JoinError),
     #[error("stored value is corrupt: {0}")]
     Corrupt(String),
-}
-
-impl From<serde_json::Error> for StoreError {
-    fn from(e: serde_json::Error) -> Self {
-        StoreError::Corrupt(e.to_string())
-    }
-}
-
-impl From<uuid::Error> for StoreError {
-    fn from(e: uuid::Error) -> Self {
-        StoreError::Corrupt(e.to_string())
-    }
-}
-
-impl From<time::error::Parse> for StoreError {
-    fn from(e: time::error::Parse) -> Self {
-        StoreError::Corrupt(e.to_string())
-    }
 }

@@ -1,5 +1,6 @@
 //! All SQL and all stored files. The schema lives in `migrations/` and is
-//! applied at start. SQL is kept portable (no SQLite-only functions) so that
+//! applied at start. Rows decode into typed structs (`rows`); SQL is kept
+//! portable (no SQLite-only functions outside the migrations) so that
 //! another database can be added here without touching the layers above.
 
 /// The filters of evaluation lists as SQL, on alias `e`; parameters ?1 to
@@ -17,12 +18,35 @@ macro_rules! evaluation_filter {
     };
 }
 
+/// The columns of each row type (`rows`), for SELECT and RETURNING.
+macro_rules! model_columns {
+    () => {
+        "id, name, sha256, bytes, info, created_at"
+    };
+}
+
+macro_rules! dataset_columns {
+    () => {
+        "id, name, sha256, bytes, samples, has_labels, arrays, largest_label, created_at"
+    };
+}
+
+macro_rules! evaluation_columns {
+    () => {
+        "id, project, teacher_id, dataset_id, status, request, tags, progress_stage, \
+         progress_done, progress_total, error, attempts, created_at, started_at, finished_at, \
+         verdict, recommended_id"
+    };
+}
+
 mod blobs;
 mod catalog;
 mod dashboard;
 mod error;
 mod evaluations;
+mod jobs;
 mod records;
+mod rows;
 
 use std::path::Path;
 use std::str::FromStr;
@@ -31,15 +55,14 @@ use std::time::Duration;
 use sqlx::sqlite::{
     SqliteConnectOptions, SqliteJournalMode, SqlitePool, SqlitePoolOptions, SqliteSynchronous,
 };
-use time::OffsetDateTime;
-use time::format_description::well_known::Rfc3339;
+use uuid::Uuid;
 
 pub use blobs::{BlobKind, Blobs, Incoming, Received};
 pub use dashboard::{EvaluationRow, TrendPoint};
 pub use error::StoreError;
 pub use records::{
-    CancelOutcome, DatasetRecord, EvaluationFilter, EvaluationRecord, ModelRecord, NewEvaluation,
-    Page, Progress, Status,
+    AppliedRequest, CancelOutcome, DatasetRecord, EvaluationFilter, EvaluationRecord, ModelRecord,
+    NewEvaluation, Page, Progress, Status,
 };
 
 /// Attempts an evaluation gets before a crash-looping one is failed for good.
@@ -81,24 +104,15 @@ impl Store {
     }
 }
 
-fn fmt_time(t: OffsetDateTime) -> String {
-    t.format(&Rfc3339)
-        .expect("UTC times always format as RFC 3339")
-}
-
-fn parse_time(s: &str) -> Result<OffsetDateTime, StoreError> {
-    Ok(OffsetDateTime::parse(s, &Rfc3339)?)
-}
-
 /// Page sizes: the default when none is asked for, and the most one page holds.
 pub const DEFAULT_PAGE: u32 = 50;
-pub const MAX_PAGE: u32 = 500;
+pub const MAX_PAGE: u32 = 200;
 
 /// Cuts a result fetched with one extra row into a page and its cursor.
-fn page<T>(mut rows: Vec<T>, limit: u32, id: impl Fn(&T) -> String) -> Page<T> {
+fn page<T>(mut rows: Vec<T>, limit: u32, id: impl Fn(&T) -> Uuid) -> Page<T> {
     let next_cursor = if rows.len() > limit as usize {
         rows.truncate(limit as usize);
-        rows.last().map(id)
+        rows.last().map(|r| id(r).to_string())
     } else {
         None
     };
@@ -108,22 +122,23 @@ fn page<T>(mut rows: Vec<T>, limit: u32, id: impl Fn(&T) -> String) -> Page<T> {
     }
 }
 
-type SqliteQuery<'q> = sqlx::query::Query<'q, sqlx::Sqlite, sqlx::sqlite::SqliteArguments>;
+type SqliteQueryAs<'q, T> =
+    sqlx::query::QueryAs<'q, sqlx::Sqlite, T, sqlx::sqlite::SqliteArguments>;
 
 /// Binds `evaluation_filter!`'s parameters, fetching one row past `limit`.
-fn bind_filter<'q>(
-    q: SqliteQuery<'q>,
+fn bind_filter<'q, T>(
+    q: SqliteQueryAs<'q, T>,
     f: &EvaluationFilter,
     limit: u32,
-    cursor: Option<uuid::Uuid>,
-) -> SqliteQuery<'q> {
+    cursor: Option<Uuid>,
+) -> SqliteQueryAs<'q, T> {
     let (tag_key, tag_value) = f.tag.clone().unzip();
     q.bind(f.project.clone())
-        .bind(f.teacher.map(|t| t.to_string()))
-        .bind(f.status.map(Status::as_str))
+        .bind(f.teacher)
+        .bind(f.status)
         .bind(f.verdict.map(crate::report::Verdict::as_str))
         .bind(tag_key)
         .bind(tag_value)
-        .bind(cursor.map(|c| c.to_string()))
+        .bind(cursor)
         .bind(limit as i64 + 1)
 }

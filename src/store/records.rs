@@ -1,12 +1,18 @@
-//! What the store keeps, in the shapes the API serves (api.md).
+//! What the store keeps, in the shapes the API serves (api.md). The client
+//! reads the same types back.
+
+use std::collections::BTreeMap;
 
 use serde::{Deserialize, Serialize};
-use serde_json::{Map, Value};
 use time::OffsetDateTime;
 use uuid::Uuid;
 
+use crate::engine::Stage;
 use crate::engine::dataset::ArrayInfo;
+use crate::engine::fit::LargestLabel;
 use crate::engine::model::ModelInfo;
+use crate::engine::settings::Settings;
+use crate::problem::Problem;
 use crate::report::Verdict;
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -30,12 +36,17 @@ pub struct DatasetRecord {
     pub samples: u64,
     pub arrays: Vec<ArrayInfo>,
     pub has_labels: bool,
+    /// Kept for checks, not served; `None` for sets without labels and for
+    /// sets uploaded before it was recorded.
+    #[serde(skip)]
+    pub largest_label: Option<LargestLabel>,
     #[serde(with = "time::serde::rfc3339")]
     pub created_at: OffsetDateTime,
 }
 
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, sqlx::Type)]
 #[serde(rename_all = "lowercase")]
+#[sqlx(type_name = "TEXT", rename_all = "lowercase")]
 pub enum Status {
     Queued,
     Running,
@@ -45,6 +56,14 @@ pub enum Status {
 }
 
 impl Status {
+    pub const ALL: [Status; 5] = [
+        Status::Queued,
+        Status::Running,
+        Status::Succeeded,
+        Status::Failed,
+        Status::Canceled,
+    ];
+
     pub fn as_str(self) -> &'static str {
         match self {
             Status::Queued => "queued",
@@ -56,15 +75,7 @@ impl Status {
     }
 
     pub fn parse(s: &str) -> Option<Status> {
-        [
-            Status::Queued,
-            Status::Running,
-            Status::Succeeded,
-            Status::Failed,
-            Status::Canceled,
-        ]
-        .into_iter()
-        .find(|st| st.as_str() == s)
+        Status::ALL.into_iter().find(|st| st.as_str() == s)
     }
 
     pub fn is_finished(self) -> bool {
@@ -74,9 +85,21 @@ impl Status {
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Progress {
-    pub stage: Option<String>,
+    pub stage: Stage,
     pub done: u64,
     pub total: u64,
+}
+
+/// An evaluation's request as applied: the ids it names, defaults filled in.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct AppliedRequest {
+    pub project: String,
+    pub teacher: Uuid,
+    pub students: Vec<Uuid>,
+    pub dataset: Uuid,
+    #[serde(flatten)]
+    pub settings: Settings,
+    pub tags: BTreeMap<String, String>,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -85,11 +108,10 @@ pub struct EvaluationRecord {
     pub project: String,
     pub status: Status,
     pub progress: Progress,
-    /// A problem object (RFC 9457) when failed.
-    pub error: Option<Value>,
-    /// The request as applied, defaults filled in.
-    pub request: Value,
-    pub tags: Map<String, Value>,
+    /// Why it failed, when it did.
+    pub error: Option<Problem>,
+    pub request: AppliedRequest,
+    pub tags: BTreeMap<String, String>,
     #[serde(with = "time::serde::rfc3339")]
     pub created_at: OffsetDateTime,
     #[serde(with = "time::serde::rfc3339::option")]
@@ -101,7 +123,7 @@ pub struct EvaluationRecord {
     pub recommended: Option<Uuid>,
     pub teacher: Uuid,
     pub dataset: Uuid,
-    #[serde(skip)]
+    /// Times a worker claimed it; a graceful stop gives its attempt back.
     pub attempts: u32,
 }
 
@@ -109,12 +131,7 @@ pub struct EvaluationRecord {
 #[derive(Debug, Clone)]
 pub struct NewEvaluation {
     pub id: Uuid,
-    pub project: String,
-    pub teacher: Uuid,
-    pub students: Vec<Uuid>,
-    pub dataset: Uuid,
-    pub request: Value,
-    pub tags: Map<String, Value>,
+    pub request: AppliedRequest,
     pub created_at: OffsetDateTime,
 }
 
@@ -130,7 +147,7 @@ pub struct EvaluationFilter {
 }
 
 /// One page of a list, newest first, and the cursor of the next page.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, Deserialize)]
 pub struct Page<T> {
     pub items: Vec<T>,
     pub next_cursor: Option<String>,

@@ -8,7 +8,7 @@ use super::format::{bytes, exact, interval, ms, prop, ratio, rfc3339, short_id, 
 use super::layout::{page, verdict_badge};
 use crate::engine::settings::RankBy;
 use crate::report::{Candidate, Report};
-use crate::service::EvaluationView;
+use crate::service::{EvaluationView, ReportView};
 use crate::store::Status;
 
 /// A number rounded for reading with its exact value on hover.
@@ -178,14 +178,15 @@ fn settings(r: &Report) -> Markup {
             dt { "Latency" } dd { (s.latency.warmup) " warm-up runs, " (s.latency.iterations) " rounds, batch 1, one thread" }
             dt { "Ranked by" } dd { (rank_name(s.rank_by)) }
             dt { "Gates" } dd {
-                @if s.gates.thresholds.is_empty() { "none" }
-                @for (g, v) in &s.gates.thresholds { code { (g.as_str()) " " (v) } " " }
+                @if s.gates.is_empty() { "none" }
+                @for (g, v) in s.gates.thresholds() { code { (g.as_str()) " " (v) } " " }
                 @if let Some(c) = s.gates.confidence { "(judged at confidence " (c) ")" }
             }
-            dt { "Output" } dd { (s.output.as_deref().unwrap_or("first output")) }
+            dt { "Scored output" } dd { (r.teacher.output) " of the teacher; "
+                @for c in &r.candidates { (c.model.name) ": " (c.output) "; " } }
             dt { "Measured on" } dd { (r.environment.cpu) ", " (r.environment.logical_cores) " cores; "
-                (r.environment.engine.name) " " (r.environment.engine.version) "; offline threads "
-                (r.environment.threads.offline) }
+                (r.environment.engine.name) " " (r.environment.engine.version) "; bulk pass on "
+                (r.environment.threads.bulk) " threads" }
         }
     }
 }
@@ -205,23 +206,27 @@ pub(super) fn render(v: &EvaluationView) -> Markup {
                 dt { "Status" } dd #status data-status=(rec.status.as_str()) {
                     (rec.status.as_str())
                     @if rec.status == Status::Running && rec.progress.total > 0 {
-                        " — " (rec.progress.stage.as_deref().unwrap_or("")) " " (rec.progress.done) "/" (rec.progress.total) " "
+                        " — " (rec.progress.stage.as_str()) " " (rec.progress.done) "/" (rec.progress.total) " "
                         progress #progress value=(rec.progress.done) max=(rec.progress.total) aria-label="progress" {}
                     }
                 }
                 dt { "Created" } dd title=(rfc3339(rec.created_at)) { (when(rec.created_at)) }
                 @if let Some(f) = rec.finished_at { dt { "Finished" } dd title=(rfc3339(f)) { (when(f)) } }
                 @if !rec.tags.is_empty() {
-                    dt { "Tags" } dd { @for (k, t) in &rec.tags { code { (k) ":" (t.as_str().unwrap_or_default()) } " " } }
+                    dt { "Tags" } dd { @for (k, t) in &rec.tags { code { (k) ":" (t) } " " } }
                 }
                 dt { "Full data" } dd { a href=(format!("/v1/evaluations/{}/report", rec.id)) { "JSON report" } " · "
                     a href=(format!("/v1/evaluations/{}", rec.id)) { "JSON status" } }
             }
             @if let Some(err) = &rec.error {
                 h2 { "Why it failed" }
-                p.fail #error { (err["detail"].as_str().unwrap_or("no detail")) }
+                p.fail #error { (err.detail) }
             }
-            @if let Some(r) = &v.report {
+            @if let ReportView::Unreadable = &v.report {
+                p #report-unreadable { "This report was written by an earlier version of Proctor, whose shape \
+                    this page does not read; every figure is in its JSON report." }
+            }
+            @if let ReportView::Shown(r) = &v.report {
                 p { (r.dataset.samples) " samples of " strong { (r.dataset.name) }
                     @if !r.dataset.has_labels { " (no labels: accuracy figures are not available)" } }
                 h2 { "Candidates" }

@@ -37,10 +37,10 @@ pub(super) fn status_cell(r: &EvaluationRow) -> Markup {
         @if r.status == Status::Running {
             span class=(class) { "running" }
             @if r.total > 0 {
-                " — " (r.stage.as_deref().unwrap_or("")) " " (r.done) "/" (r.total) " "
+                " — " (r.stage.as_str()) " " (r.done) "/" (r.total) " "
                 progress value=(r.done) max=(r.total) aria-label="progress" {}
             } @else {
-                " — " (r.stage.as_deref().unwrap_or("starting"))
+                " — " (r.stage.as_str())
             }
         } @else {
             span class=(class) { (r.status.as_str()) }

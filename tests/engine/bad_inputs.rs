@@ -59,7 +59,7 @@ fn float_labels_are_refused_at_upload() {
 fn a_set_that_does_not_fit_the_model_names_the_array_and_the_axis() {
     let model = Model::load(&case_dir("mlp").join("teacher.onnx")).unwrap();
     let set = EvalSet::open(&bad("mismatch.npz")).unwrap();
-    let err = proctor::engine::feed::bind(&model, &set, "teacher").unwrap_err();
+    let err = proctor::engine::fit::bind(&model.info, &set.info().arrays, "teacher").unwrap_err();
     assert!(matches!(err, EngineError::Mismatch(_)), "{err:?}");
     let msg = err.to_string();
     assert!(

@@ -2,13 +2,13 @@
 
 use std::path::Path;
 use std::sync::Mutex;
-use std::sync::atomic::AtomicBool;
 
-use proctor::engine::evaluate::{
-    Alone, DatasetRef, Hooks, Job, ModelRef, Options, Stage, evaluate, prepare,
+use proctor::engine::gates::{GateName, Gates};
+use proctor::engine::settings::Settings;
+use proctor::engine::{
+    Alone, DatasetRef, EngineError, Hooks, Job, ModelRef, Options, Outcome, Stage, evaluate,
+    prepare,
 };
-use proctor::engine::settings::{Gates, Settings};
-use proctor::engine::{EngineError, Outcome};
 use proctor::report::Verdict;
 use serde_json::{Value, json};
 use uuid::Uuid;
@@ -66,13 +66,11 @@ fn quick(mut s: Settings) -> Settings {
 }
 
 fn run(job: &Job, options: &Options) -> Result<Outcome, EngineError> {
-    let cancel = AtomicBool::new(false);
     evaluate(
         job,
         options,
         &Hooks {
             progress: &|_, _, _| {},
-            cancel: &cancel,
             cpu: &Alone,
         },
     )
@@ -177,7 +175,7 @@ fn a_report_has_every_section_of_the_contract() {
     }
     assert!(r["teacher"]["latency"].get("speedup").is_none());
     assert_eq!(r["environment"]["engine"]["name"], "tract");
-    assert_eq!(r["environment"]["threads"]["latency"], 1);
+    assert_eq!(r["environment"]["threads"]["timing"], 1);
     assert_eq!(r["teacher"]["accuracy"]["ece_bins"], 15);
     // No gates: every candidate passes, so the verdict is go (metrics.md, Ranking 4).
     assert_eq!(out.report.verdict, Verdict::Go);
@@ -188,7 +186,24 @@ fn a_report_has_every_section_of_the_contract() {
 }
 
 #[test]
-fn latency_records_exactly_the_requested_iterations() {
+fn the_timed_rounds_run_exactly_the_requested_iterations_of_every_model() {
+    let mut s = Settings::default();
+    s.latency.warmup = 0;
+    s.latency.iterations = 7;
+    let out = run(
+        &job("mlp", &["student_narrow.onnx", "student_wide.onnx"], s),
+        &Options::default(),
+    )
+    .unwrap();
+    assert_eq!(out.rounds.len(), 7, "one row per round");
+    for round in &out.rounds {
+        assert_eq!(round.len(), 3, "the teacher and both students, once each");
+        assert!(round.iter().all(|ms| *ms > 0.0), "{round:?}");
+    }
+}
+
+#[test]
+fn a_single_round_makes_every_percentile_that_round_and_leaves_stdev_undefined() {
     let mut s = Settings::default();
     s.latency.warmup = 0;
     s.latency.iterations = 1;
@@ -198,9 +213,10 @@ fn latency_records_exactly_the_requested_iterations() {
     )
     .unwrap();
     let l = &out.report.candidates[0].latency.own;
-    // One sample: every percentile is that sample and the sample stdev is undefined.
-    assert_eq!(l.p50_ms, l.p99_ms);
-    assert_eq!(l.mean_ms, l.p50_ms);
+    assert_eq!(out.rounds.len(), 1);
+    assert_eq!(l.p50_ms, out.rounds[0][1]);
+    assert_eq!(l.p99_ms, out.rounds[0][1]);
+    assert_eq!(l.mean_ms, out.rounds[0][1]);
     assert_eq!(l.stdev_ms, None);
 }
 
@@ -209,7 +225,7 @@ fn a_second_evaluation_against_the_same_teacher_and_set_reuses_its_scores() {
     let cache = tempfile::tempdir().unwrap();
     let options = Options {
         teacher_cache: Some(cache.path().to_owned()),
-        offline_threads: 1,
+        bulk_threads: 1,
     };
     let first = run(
         &job("mlp", &["student_wide.onnx"], quick(Settings::default())),
@@ -221,8 +237,8 @@ fn a_second_evaluation_against_the_same_teacher_and_set_reuses_its_scores() {
         &options,
     )
     .unwrap();
-    assert!(!first.timings.teacher_from_cache);
-    assert!(second.timings.teacher_from_cache);
+    assert!(!first.teacher_from_cache);
+    assert!(second.teacher_from_cache);
     assert_eq!(
         first.report.teacher.accuracy,
         second.report.teacher.accuracy
@@ -234,9 +250,8 @@ fn a_second_evaluation_against_the_same_teacher_and_set_reuses_its_scores() {
 }
 
 #[test]
-fn progress_walks_through_every_stage_and_ends_complete() {
+fn progress_walks_through_every_stage_in_order_and_ends_complete() {
     let seen: Mutex<Vec<(Stage, u64, u64)>> = Mutex::new(Vec::new());
-    let cancel = AtomicBool::new(false);
     let progress = |s: Stage, d: u64, t: u64| seen.lock().unwrap().push((s, d, t));
     evaluate(
         &job(
@@ -247,38 +262,22 @@ fn progress_walks_through_every_stage_and_ends_complete() {
         &Options::default(),
         &Hooks {
             progress: &progress,
-            cancel: &cancel,
             cpu: &Alone,
         },
     )
     .unwrap();
     let seen = seen.into_inner().unwrap();
-    for stage in [
-        Stage::Loading,
-        Stage::Offline,
-        Stage::Scoring,
-        Stage::Latency,
-    ] {
-        let last = seen.iter().rev().find(|(s, _, _)| *s == stage).unwrap();
+    let mut order: Vec<Stage> = seen.iter().map(|(s, _, _)| *s).collect();
+    order.dedup();
+    assert_eq!(
+        order,
+        vec![Stage::Loading, Stage::Bulk, Stage::Timing, Stage::Scoring],
+        "api.md's stage names, each entered once"
+    );
+    for stage in &order {
+        let last = seen.iter().rev().find(|(s, _, _)| s == stage).unwrap();
         assert_eq!(last.1, last.2, "{stage:?} did not finish: {last:?}");
     }
-}
-
-#[test]
-fn a_raised_cancel_flag_stops_the_evaluation() {
-    let cancel = AtomicBool::new(true);
-    let err = evaluate(
-        &job("mlp", &["student_wide.onnx"], Settings::default()),
-        &Options::default(),
-        &Hooks {
-            progress: &|_, _, _| {},
-            cancel: &cancel,
-            cpu: &Alone,
-        },
-    )
-    .err()
-    .unwrap();
-    assert!(matches!(err, EngineError::Canceled), "{err:?}");
 }
 
 #[test]
@@ -314,7 +313,7 @@ fn a_model_that_outputs_nan_fails_naming_the_model_and_the_sample() {
     assert!(matches!(err, EngineError::BadOutput(_)), "{err:?}");
     let msg = err.to_string();
     assert!(
-        msg.contains("'nan_output'") && msg.contains("NaN at sample"),
+        msg.contains("student 'nan_output' gave NaN for sample"),
         "{msg}"
     );
 }
@@ -322,18 +321,14 @@ fn a_model_that_outputs_nan_fails_naming_the_model_and_the_sample() {
 #[test]
 fn a_gate_that_fails_makes_the_verdict_no_go_and_says_which() {
     let mut s = quick(Settings::default());
-    s.gates = Gates::parse(
-        json!({"min_agreement": 0.99, "max_bytes": 1e9})
-            .as_object()
-            .unwrap(),
-    )
-    .unwrap();
+    s.gates =
+        serde_json::from_value::<Gates>(json!({"min_agreement": 0.99, "max_bytes": 1e9})).unwrap();
     let out = run(&job("mlp", &["student_wide.onnx"], s), &Options::default()).unwrap();
     assert_eq!(out.report.verdict, Verdict::NoGo);
     assert_eq!(out.report.recommended, None);
     let checks = &out.report.candidates[0].gates.checks;
     assert_eq!(checks.len(), 2);
-    assert_eq!(checks[0].gate, "min_agreement");
+    assert_eq!(checks[0].gate, GateName::MinAgreement);
     assert!(!checks[0].passed);
     assert!(checks[1].passed);
 }

@@ -1,7 +1,7 @@
 //! Per-model and per-figure checks against the reference fixtures.
 
 use proctor::engine::evaluate::model_scores;
-use proctor::engine::logits::{Logits, OutputKind, OutputKindChoice, to_logits};
+use proctor::engine::logits::{OutputKind, OutputKindChoice, Scores, to_logits};
 use proctor::engine::metrics::accuracy::{StudentInputs, accuracy, student_accuracy};
 use proctor::engine::metrics::fidelity::fidelity;
 use proctor::engine::model::Model;
@@ -20,14 +20,14 @@ fn models(exp: &Value) -> Vec<(String, Value)> {
 }
 
 /// onnxruntime's output for one model, as saved by the generator.
-fn ort_logits(case: &str, stem: &str) -> Logits {
+fn ort_scores(case: &str, stem: &str) -> Scores {
     let (shape, data) = npy::read_f64(&case_dir(case).join(format!("ort/{stem}.npy"))).unwrap();
     assert_eq!(
         shape.len(),
         2,
         "{case}/{stem}: reference output is not [N, C]"
     );
-    Logits::from_rows(shape[1], data)
+    Scores::from_rows(shape[1], data)
 }
 
 #[test]
@@ -39,7 +39,7 @@ fn tract_reproduces_onnxruntime_outputs_for_every_reference_model() {
             let path = dir.join(info["file"].as_str().unwrap());
             let got = model_scores(&path, &dir.join("data.npz"), 32, None)
                 .unwrap_or_else(|e| panic!("{case}/{stem}: {e}"));
-            let want = ort_logits(case, &stem);
+            let want = ort_scores(case, &stem);
             assert_eq!((got.n, got.c), (want.n, want.c), "{case}/{stem}: shape");
             let (mut worst, mut at) = (0.0f64, 0);
             for (i, (g, w)) in got.data.iter().zip(&want.data).enumerate() {
@@ -102,8 +102,8 @@ fn figures_from_reference_logits(case: &str, exp: &Value, stem: &str) -> Value {
     let t = exp["temperature"].as_f64().unwrap();
     let alpha = exp["alpha"].as_f64().unwrap();
     let teacher_stem = exp["teacher"].as_str().unwrap();
-    let (teacher, tk) = to_logits(ort_logits(case, teacher_stem), OutputKindChoice::Auto);
-    let (student, sk) = to_logits(ort_logits(case, stem), OutputKindChoice::Auto);
+    let (teacher, tk) = to_logits(ort_scores(case, teacher_stem), OutputKindChoice::Auto);
+    let (student, sk) = to_logits(ort_scores(case, stem), OutputKindChoice::Auto);
     let kind = |k: OutputKind| serde_json::to_value(k).unwrap();
     assert_eq!(
         kind(tk),
@@ -159,7 +159,7 @@ fn every_figure_matches_numpy_scipy_and_statsmodels_from_the_same_logits() {
         }
         if let Some(want) = exp["teacher_accuracy"].as_object() {
             let teacher_stem = exp["teacher"].as_str().unwrap();
-            let (t, _) = to_logits(ort_logits(case, teacher_stem), OutputKindChoice::Auto);
+            let (t, _) = to_logits(ort_scores(case, teacher_stem), OutputKindChoice::Auto);
             let set =
                 proctor::engine::dataset::EvalSet::open(&case_dir(case).join("data.npz")).unwrap();
             let got = serde_json::to_value(accuracy(&t, set.labels().unwrap())).unwrap();

@@ -1,10 +1,10 @@
-//! Running one engine task in a child process of the same binary, under an
-//! address-space cap and a wall-time limit, so that a model that panics,
-//! aborts or exhausts memory ends that task only, never the service.
+//! Starting one engine child of this same binary under an address-space cap
+//! and a wall-time limit, feeding it a task and reading its lines, so that a
+//! model that panics, aborts or exhausts memory ends that child only.
 
 use std::os::unix::process::ExitStatusExt;
-use std::path::PathBuf;
-use std::process::Stdio;
+use std::path::Path;
+use std::process::{ExitStatus, Stdio};
 use std::time::Duration;
 
 use tokio::io::{AsyncBufReadExt, AsyncReadExt, AsyncWriteExt, BufReader};
@@ -17,6 +17,9 @@ use crate::engine::Stage;
 /// The hidden subcommand a child runs.
 pub const CHILD_COMMAND: &str = "child";
 
+/// How much of a child's stderr the parent keeps (its end says why it died).
+const STDERR_TAIL: usize = 8192;
+
 #[derive(Debug, Clone)]
 pub struct Limits {
     /// Address-space cap of the child (RLIMIT_AS); `None` for no cap.
@@ -26,44 +29,60 @@ pub struct Limits {
 
 /// How a child ended.
 #[derive(Debug)]
-pub enum Ended {
-    /// It wrote its answer (a result or a typed failure).
+pub(super) enum Ended {
+    /// It wrote its final answer (a result or a typed failure).
     Answer(Message),
     /// The cancellation token fired and the child was killed.
     Canceled,
+    /// It ran past its wall-time limit and was killed.
     TimedOut,
-    /// It died without an answer; the text says how, in words for a user.
-    Crashed(String),
+    /// It ended without a readable answer.
+    Died(Death),
 }
 
-fn describe_crash(status: std::process::ExitStatus, stderr: &str, limits: &Limits) -> String {
-    let memory = limits.memory_bytes.map(|b| format!("{} MiB", b >> 20));
-    if stderr.contains("memory allocation of") || stderr.contains("out of memory") {
-        return format!(
-            "the engine ran out of memory (the limit per evaluation is {})",
-            memory.unwrap_or_else(|| "the machine's".into())
-        );
+/// What is known of a child that ended without an answer.
+#[derive(Debug)]
+pub(super) struct Death {
+    pub(super) status: ExitStatus,
+    pub(super) stderr_tail: String,
+    /// A line it wrote that did not parse, with the reason.
+    pub(super) unreadable: Option<String>,
+}
+
+impl Death {
+    /// Whether the child died of its memory cap (an allocation failed and
+    /// the process aborted, or the kernel killed it).
+    pub(super) fn out_of_memory(&self) -> bool {
+        self.stderr_tail.contains("memory allocation of")
+            || self.stderr_tail.contains("out of memory")
+            || self.status.signal() == Some(libc::SIGKILL)
     }
-    match (status.code(), status.signal()) {
-        (_, Some(sig)) if sig == libc::SIGKILL => format!(
-            "the engine process was killed (signal {sig}), most likely for exceeding memory \
-             (limit {})",
-            memory.unwrap_or_else(|| "none".into())
-        ),
-        (_, Some(sig)) => format!("the engine process crashed (signal {sig})"),
-        (Some(code), _) => {
-            format!("the engine process exited with status {code} without an answer")
+}
+
+/// Reads a stream to its end, keeping only its last `STDERR_TAIL` bytes.
+async fn tail(mut from: impl tokio::io::AsyncRead + Unpin) -> String {
+    let mut kept: Vec<u8> = Vec::with_capacity(STDERR_TAIL);
+    let mut buf = vec![0u8; 4096];
+    while let Ok(n) = from.read(&mut buf).await {
+        if n == 0 {
+            break;
         }
-        _ => "the engine process ended without an answer".into(),
+        kept.extend_from_slice(&buf[..n]);
+        if kept.len() > STDERR_TAIL {
+            kept.drain(..kept.len() - STDERR_TAIL);
+        }
     }
+    String::from_utf8_lossy(&kept).into_owned()
 }
 
-/// Runs `task` in a child, passing progress to `on_progress`.
-pub async fn run(
-    exe: &PathBuf,
+/// Runs `task` in a child, passing progress to `on_progress`. The `Err`
+/// case is an I/O fault of the parent (the child could not be started or
+/// spoken to).
+pub(super) async fn run(
+    exe: &Path,
     task: &Task,
     limits: &Limits,
-    cancel: &CancellationToken,
+    cancel: Option<&CancellationToken>,
     mut on_progress: impl FnMut(Stage, u64, u64),
 ) -> std::io::Result<Ended> {
     let mut cmd = Command::new(exe);
@@ -98,29 +117,28 @@ pub async fn run(
     }
     let mut child = cmd.spawn()?;
     let mut stdin = child.stdin.take().expect("stdin is piped");
-    let mut line = serde_json::to_vec(task).expect("tasks serialize");
+    let mut line = serde_json::to_vec(task).map_err(std::io::Error::other)?;
     line.push(b'\n');
     stdin.write_all(&line).await?;
     drop(stdin);
 
-    let mut stderr = child.stderr.take().expect("stderr is piped");
-    let stderr_tail = tokio::spawn(async move {
-        let mut all = Vec::new();
-        let _ = stderr.read_to_end(&mut all).await;
-        let start = all.len().saturating_sub(8192);
-        String::from_utf8_lossy(&all[start..]).into_owned()
-    });
+    let stderr_tail = tokio::spawn(tail(child.stderr.take().expect("stderr is piped")));
     let mut lines = BufReader::new(child.stdout.take().expect("stdout is piped")).lines();
     let deadline = tokio::time::sleep(limits.wall_time);
     tokio::pin!(deadline);
-    let mut answer = None;
+    let never = CancellationToken::new();
+    let cancel = cancel.unwrap_or(&never);
+    let (mut answer, mut unreadable) = (None, None);
     loop {
         tokio::select! {
             next = lines.next_line() => match next? {
                 Some(text) => match serde_json::from_str::<Message>(&text) {
                     Ok(Message::Progress { stage, done, total }) => on_progress(stage, done, total),
                     Ok(final_message) => answer = Some(final_message),
-                    Err(e) => tracing::warn!("unreadable line from the engine process: {e}"),
+                    Err(e) => {
+                        let start: String = text.chars().take(120).collect();
+                        unreadable = Some(format!("{e} in a line starting {start:?}"));
+                    }
                 },
                 None => break,
             },
@@ -135,12 +153,13 @@ pub async fn run(
         }
     }
     let status = child.wait().await?;
-    let stderr = stderr_tail.await.unwrap_or_default();
+    let stderr_tail = stderr_tail.await.unwrap_or_default();
     Ok(match answer {
         Some(m) => Ended::Answer(m),
-        None => {
-            tracing::warn!(%status, stderr = %stderr.trim(), "engine process ended without an answer");
-            Ended::Crashed(describe_crash(status, &stderr, limits))
-        }
+        None => Ended::Died(Death {
+            status,
+            stderr_tail,
+            unreadable,
+        }),
     })
 }

@@ -4,12 +4,12 @@
 
 use std::io::{BufRead, Write};
 use std::sync::Mutex;
-use std::sync::atomic::AtomicBool;
 use std::time::{Duration, Instant};
 
-use super::cpu_lock::FileLease;
-use super::protocol::{Failure, Message, Task};
-use crate::engine::{self, Alone, CpuLease, EngineResult, Hooks, Options, Stage};
+use super::cpu_lock::FileCpuLock;
+use super::hold::Holding;
+use super::protocol::{Evaluated, Failure, Message, Task};
+use crate::engine::{self, EngineResult, Hooks, Stage};
 
 fn emit(out: &Mutex<std::io::Stdout>, message: &Message) {
     let mut line = serde_json::to_vec(message).expect("messages serialize");
@@ -52,41 +52,38 @@ fn run(task: Task, out: &Mutex<std::io::Stdout>) -> EngineResult<Message> {
     match task {
         Task::InspectModel { path } => Ok(Message::Model(Box::new(engine::inspect_model(&path)?))),
         Task::InspectDataset { path } => Ok(Message::Dataset(engine::inspect_dataset(&path)?)),
-        Task::Check { job } => engine::prepare(&job).map(|_| Message::Checked),
+        Task::Preflight { job } => engine::prepare(&job).map(|_| Message::Preflighted),
         Task::Evaluate {
             job,
-            teacher_cache,
-            offline_threads,
+            options,
             cpu_lock,
+            hold,
         } => {
-            let lease: Box<dyn CpuLease> = match cpu_lock {
-                Some(path) => Box::new(FileLease::open(&path)?),
-                None => Box::new(Alone),
-            };
+            let lock = FileCpuLock::open(&cpu_lock)?;
+            let holding = Holding::new(hold);
             let last = Mutex::new((None::<Stage>, Instant::now()));
             let progress = |stage: Stage, done: u64, total: u64| {
-                let mut last = last.lock().unwrap_or_else(|p| p.into_inner());
-                let due = last.0 != Some(stage)
-                    || done == total
-                    || last.1.elapsed() >= Duration::from_millis(200);
-                if due {
-                    *last = (Some(stage), Instant::now());
-                    emit(out, &Message::Progress { stage, done, total });
+                {
+                    let mut last = last.lock().unwrap_or_else(|p| p.into_inner());
+                    let due = last.0 != Some(stage)
+                        || done == total
+                        || last.1.elapsed() >= Duration::from_millis(200);
+                    if due {
+                        *last = (Some(stage), Instant::now());
+                        emit(out, &Message::Progress { stage, done, total });
+                    }
                 }
+                holding.at(stage);
             };
-            // The parent cancels by killing the child; the flag stays down.
-            let cancel = AtomicBool::new(false);
             let hooks = Hooks {
                 progress: &progress,
-                cancel: &cancel,
-                cpu: lease.as_ref(),
-            };
-            let options = Options {
-                teacher_cache,
-                offline_threads,
+                cpu: &lock,
             };
             let outcome = engine::evaluate(&job, &options, &hooks)?;
-            Ok(Message::Report(Box::new(outcome.report)))
+            Ok(Message::Evaluated(Box::new(Evaluated {
+                report: outcome.report,
+                rounds: outcome.rounds,
+            })))
         }
     }
 }

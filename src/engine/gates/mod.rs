@@ -2,90 +2,18 @@
 //! With a `confidence`, gates on proportions judge the cautious end of their
 //! interval instead of the estimate.
 
+mod table;
+
+pub use table::{GateName, Gates, Needs};
+
 use serde::{Deserialize, Serialize};
 
-use super::settings::Gates;
 use super::stats::{paired_wald, wilson, z_for_confidence};
 use crate::report::Candidate;
 
-/// Every known gate, in the order of metrics.md's table.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash)]
-pub enum GateName {
-    MinAgreement,
-    MaxKl,
-    MinTop1,
-    MaxTop1Drop,
-    MinRetention,
-    MaxNegativeFlipRate,
-    MaxEce,
-    MaxP90Ms,
-    MinSpeedup,
-    MaxBytes,
-    MaxSizeRatio,
-    MaxParameters,
-}
-
-const ALL: [GateName; 12] = [
-    GateName::MinAgreement,
-    GateName::MaxKl,
-    GateName::MinTop1,
-    GateName::MaxTop1Drop,
-    GateName::MinRetention,
-    GateName::MaxNegativeFlipRate,
-    GateName::MaxEce,
-    GateName::MaxP90Ms,
-    GateName::MinSpeedup,
-    GateName::MaxBytes,
-    GateName::MaxSizeRatio,
-    GateName::MaxParameters,
-];
-
-impl GateName {
-    pub fn as_str(self) -> &'static str {
-        match self {
-            GateName::MinAgreement => "min_agreement",
-            GateName::MaxKl => "max_kl",
-            GateName::MinTop1 => "min_top1",
-            GateName::MaxTop1Drop => "max_top1_drop",
-            GateName::MinRetention => "min_retention",
-            GateName::MaxNegativeFlipRate => "max_negative_flip_rate",
-            GateName::MaxEce => "max_ece",
-            GateName::MaxP90Ms => "max_p90_ms",
-            GateName::MinSpeedup => "min_speedup",
-            GateName::MaxBytes => "max_bytes",
-            GateName::MaxSizeRatio => "max_size_ratio",
-            GateName::MaxParameters => "max_parameters",
-        }
-    }
-
-    pub fn parse(name: &str) -> Option<GateName> {
-        ALL.into_iter().find(|g| g.as_str() == name)
-    }
-
-    pub fn all_names() -> String {
-        ALL.map(GateName::as_str).join(", ")
-    }
-
-    pub fn needs_labels(self) -> bool {
-        matches!(
-            self,
-            GateName::MinTop1
-                | GateName::MaxTop1Drop
-                | GateName::MinRetention
-                | GateName::MaxNegativeFlipRate
-                | GateName::MaxEce
-        )
-    }
-
-    /// True for `min_*` gates (judged >= threshold), false for `max_*`.
-    fn is_floor(self) -> bool {
-        self.as_str().starts_with("min_")
-    }
-}
-
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-pub struct Check {
-    pub gate: String,
+pub struct GateCheck {
+    pub gate: GateName,
     pub threshold: f64,
     /// The value compared with the threshold: the estimate, or the cautious
     /// end of its interval under `confidence`. Null when the figure is undefined.
@@ -101,7 +29,7 @@ pub struct Check {
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize, Default)]
 pub struct GateOutcome {
     pub passed: bool,
-    pub checks: Vec<Check>,
+    pub checks: Vec<GateCheck>,
 }
 
 /// The estimate and the judged value of one gate for one candidate.
@@ -156,10 +84,10 @@ fn figures(
 /// Judges every gate for one candidate over a set of `samples`.
 pub fn judge(gates: &Gates, candidate: &Candidate, samples: u64) -> GateOutcome {
     let z = gates.confidence.map(z_for_confidence);
-    let checks: Vec<Check> = gates
-        .thresholds
-        .iter()
-        .map(|&(gate, threshold)| {
+    let checks: Vec<GateCheck> = gates
+        .thresholds()
+        .into_iter()
+        .map(|(gate, threshold)| {
             let (estimate, judged) = figures(gate, candidate, samples, z);
             let passed = judged.is_some_and(|v| {
                 if gate.is_floor() {
@@ -175,8 +103,8 @@ pub fn judge(gates: &Gates, candidate: &Candidate, samples: u64) -> GateOutcome 
                 (_, None) => Some(format!("{} needs labels", gate.as_str())),
                 _ => None,
             };
-            Check {
-                gate: gate.as_str().to_string(),
+            GateCheck {
+                gate,
                 threshold,
                 judged,
                 estimate,
@@ -219,6 +147,7 @@ pub(crate) mod tests {
                 name: "s".into(),
                 sha256: "0".into(),
             },
+            output: "logits".into(),
             output_kind: crate::engine::logits::OutputKind::Logits,
             fidelity: Fidelity {
                 agreement: 0.9,
@@ -268,11 +197,7 @@ pub(crate) mod tests {
     }
 
     fn judged(gates: serde_json::Value) -> GateOutcome {
-        judge(
-            &Gates::parse(gates.as_object().unwrap()).unwrap(),
-            &candidate(),
-            100,
-        )
+        judge(&serde_json::from_value(gates).unwrap(), &candidate(), 100)
     }
 
     #[test]
@@ -313,7 +238,7 @@ pub(crate) mod tests {
         let judged = |g: &str| {
             out.checks
                 .iter()
-                .find(|c| c.gate == g)
+                .find(|c| c.gate.as_str() == g)
                 .unwrap()
                 .judged
                 .unwrap()
@@ -333,7 +258,7 @@ pub(crate) mod tests {
         let agreement = out
             .checks
             .iter()
-            .find(|c| c.gate == "min_agreement")
+            .find(|c| c.gate == GateName::MinAgreement)
             .unwrap();
         assert_eq!(agreement.estimate, Some(0.9));
         assert!(
@@ -346,7 +271,7 @@ pub(crate) mod tests {
     fn an_undefined_retention_fails_its_gate_saying_why() {
         let mut c = candidate();
         c.accuracy.as_mut().unwrap().retention = None;
-        let gates = Gates::parse(json!({"min_retention": 0.5}).as_object().unwrap()).unwrap();
+        let gates: Gates = serde_json::from_value(json!({"min_retention": 0.5})).unwrap();
         let out = judge(&gates, &c, 100);
         assert!(!out.passed);
         assert!(

@@ -8,13 +8,14 @@ use axum::middleware::Next;
 use axum::response::{IntoResponse, Response};
 
 use crate::error::AppError;
-use crate::problem::{problem, reason_phrase};
+use crate::problem::{Problem, reason_phrase};
 
 pub const PROBLEM_JSON: &str = "application/problem+json";
 
-fn respond(status: u16, body: serde_json::Value) -> Response {
-    let code = StatusCode::from_u16(status).unwrap_or(StatusCode::INTERNAL_SERVER_ERROR);
-    let mut res = (code, body.to_string()).into_response();
+fn respond(problem: &Problem) -> Response {
+    let code = StatusCode::from_u16(problem.status).unwrap_or(StatusCode::INTERNAL_SERVER_ERROR);
+    let body = serde_json::to_string(problem).expect("problems serialize");
+    let mut res = (code, body).into_response();
     res.headers_mut()
         .insert(header::CONTENT_TYPE, HeaderValue::from_static(PROBLEM_JSON));
     res
@@ -22,17 +23,17 @@ fn respond(status: u16, body: serde_json::Value) -> Response {
 
 impl IntoResponse for AppError {
     fn into_response(self) -> Response {
-        let status = self.status_code();
-        if status >= 500 {
-            tracing::error!(cause = %self, "request failed");
-            let detail = match self {
-                AppError::Unavailable(d) => d,
-                _ => "something went wrong on our side; the cause is logged with this request's id"
-                    .to_string(),
-            };
-            return respond(status, problem(status, &detail, None));
+        if let AppError::Internal(cause) = &self {
+            tracing::error!(cause = %cause, "request failed");
         }
-        respond(status, problem(status, &self.to_string(), self.field()))
+        let mut res = respond(&self.problem());
+        if let Some(wait) = self.retry_after() {
+            res.headers_mut().insert(
+                header::RETRY_AFTER,
+                HeaderValue::from(wait.as_secs().max(1)),
+            );
+        }
+        res
     }
 }
 
@@ -55,7 +56,7 @@ pub async fn ensure_problem_json(req: Request<Body>, next: Next) -> Response {
         413 => "the request body is too large".to_string(),
         s => reason_phrase(s).to_string(),
     };
-    let mut out = respond(status.as_u16(), problem(status.as_u16(), &detail, None));
+    let mut out = respond(&Problem::new(status.as_u16(), detail, None));
     for (name, value) in res.headers() {
         if name != header::CONTENT_TYPE && name != header::CONTENT_LENGTH {
             out.headers_mut().insert(name.clone(), value.clone());

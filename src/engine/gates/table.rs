@@ -1,0 +1,158 @@
+//! The table of known gates (metrics.md, "Gates"): each gate's name, what
+//! it needs from the evaluation, and the request's `gates` object, which is
+//! generated from the same table so that a gate cannot be known to one and
+//! unknown to the other.
+
+use serde::{Deserialize, Serialize};
+
+/// What a gate needs besides the teacher and the candidates.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Needs {
+    Nothing,
+    Labels,
+}
+
+macro_rules! gate_table {
+    ($( $variant:ident => $field:ident, $needs:ident; )*) => {
+        /// Every known gate, in the order of metrics.md's table; reports list
+        /// checks in this order.
+        #[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize, Deserialize)]
+        #[serde(rename_all = "snake_case")]
+        pub enum GateName {
+            $( $variant, )*
+        }
+
+        impl GateName {
+            pub const ALL: &'static [GateName] = &[$( GateName::$variant, )*];
+
+            pub fn as_str(self) -> &'static str {
+                match self {
+                    $( GateName::$variant => stringify!($field), )*
+                }
+            }
+
+            pub fn needs(self) -> Needs {
+                match self {
+                    $( GateName::$variant => Needs::$needs, )*
+                }
+            }
+        }
+
+        /// The `gates` object of a request: a threshold per gate, all
+        /// optional, and the `confidence` that makes gates judge the
+        /// cautious end of their interval. Unknown names are refused with
+        /// the list of known ones.
+        #[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
+        #[serde(deny_unknown_fields)]
+        pub struct Gates {
+            $(
+                #[serde(default, skip_serializing_if = "Option::is_none")]
+                pub $field: Option<f64>,
+            )*
+            #[serde(default, skip_serializing_if = "Option::is_none")]
+            pub confidence: Option<f64>,
+        }
+
+        impl Gates {
+            /// Sets (or replaces) one gate's threshold.
+            pub fn set(&mut self, gate: GateName, threshold: f64) {
+                match gate {
+                    $( GateName::$variant => self.$field = Some(threshold), )*
+                }
+            }
+
+            /// The thresholds given, in table order.
+            pub fn thresholds(&self) -> Vec<(GateName, f64)> {
+                let mut out = Vec::new();
+                $( if let Some(v) = self.$field { out.push((GateName::$variant, v)); } )*
+                out
+            }
+        }
+    };
+}
+
+gate_table! {
+    MinAgreement => min_agreement, Nothing;
+    MaxKl => max_kl, Nothing;
+    MinTop1 => min_top1, Labels;
+    MaxTop1Drop => max_top1_drop, Labels;
+    MinRetention => min_retention, Labels;
+    MaxNegativeFlipRate => max_negative_flip_rate, Labels;
+    MaxEce => max_ece, Labels;
+    MaxP90Ms => max_p90_ms, Nothing;
+    MinSpeedup => min_speedup, Nothing;
+    MaxBytes => max_bytes, Nothing;
+    MaxSizeRatio => max_size_ratio, Nothing;
+    MaxParameters => max_parameters, Nothing;
+}
+
+impl GateName {
+    pub fn parse(name: &str) -> Option<GateName> {
+        GateName::ALL.iter().copied().find(|g| g.as_str() == name)
+    }
+
+    /// Every gate's name, comma-separated, for help texts and errors.
+    pub fn all_names() -> String {
+        GateName::ALL
+            .iter()
+            .map(|g| g.as_str())
+            .collect::<Vec<_>>()
+            .join(", ")
+    }
+
+    /// True for `min_*` gates (judged >= threshold), false for `max_*`.
+    pub fn is_floor(self) -> bool {
+        self.as_str().starts_with("min_")
+    }
+}
+
+impl std::fmt::Display for GateName {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.as_str())
+    }
+}
+
+impl Gates {
+    /// The first gate given that needs labels, if any.
+    pub fn needing(&self, needs: Needs) -> Option<GateName> {
+        self.thresholds()
+            .into_iter()
+            .map(|(g, _)| g)
+            .find(|g| g.needs() == needs)
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.thresholds().is_empty()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn every_gate_name_round_trips_through_the_request_object() {
+        for &g in GateName::ALL {
+            let body = serde_json::json!({ g.as_str(): 1.5 });
+            let gates: Gates = serde_json::from_value(body.clone()).unwrap();
+            assert_eq!(gates.thresholds(), vec![(g, 1.5)], "{g}");
+            assert_eq!(serde_json::to_value(&gates).unwrap(), body);
+            assert_eq!(GateName::parse(g.as_str()), Some(g));
+            assert_eq!(serde_json::to_value(g).unwrap(), g.as_str());
+            let mut set = Gates::default();
+            set.set(g, 1.5);
+            assert_eq!(set, gates);
+        }
+    }
+
+    #[test]
+    fn an_unknown_gate_is_refused_naming_it_and_the_known_ones() {
+        let err = serde_json::from_value::<Gates>(serde_json::json!({"min_agreemnt": 0.9}))
+            .unwrap_err()
+            .to_string();
+        assert!(err.contains("min_agreemnt"), "{err}");
+        for &g in GateName::ALL {
+            assert!(err.contains(g.as_str()), "{err} lacks {g}");
+        }
+    }
+}
