@@ -93,6 +93,7 @@ fn bench_peak_rss() {
             },
             ..Settings::default()
         },
+        claimed_at: None,
     };
     let started = Instant::now();
     let out = evaluate(

@@ -4,17 +4,17 @@
 use time::OffsetDateTime;
 
 use super::environment::Environment;
-use super::gates::judge;
+use super::gates::{Evidence, judge};
 use super::job::{Job, ModelRef};
 use super::latency;
 use super::logits::OutputKind;
 use super::metrics::accuracy::{Accuracy, StudentAccuracy};
 use super::metrics::fidelity::Fidelity;
-use super::ranking::{mark_pareto, rank, verdict};
+use super::ranking::{rank, verdict};
 use super::setup::Setup;
 use crate::report::{
-    Candidate, DatasetSummary, ModelSummary, Report, ReportSettings, Size, StudentLatency,
-    TeacherEntry, TeacherSize,
+    Candidate, DatasetSummary, ModelSummary, Report, ReportSettings, Size, TeacherEntry,
+    TeacherSize,
 };
 
 /// The scoring stage's figures: the teacher's, then each student's in
@@ -52,8 +52,9 @@ pub fn assemble(
             .model
             .macs_per_sample(&teacher_model.binding.dims),
     };
-    let teacher_latency = latency::summarize(&per_entry[0], throughput(setup.teacher));
-    let mut candidates: Vec<Candidate> = job
+    let teacher_rounds = &per_entry[0];
+    let teacher_latency = latency::summarize(teacher_rounds, throughput(setup.teacher));
+    let candidates: Vec<Candidate> = job
         .students
         .iter()
         .zip(&setup.students)
@@ -61,7 +62,6 @@ pub fn assemble(
         .zip(&per_entry[1..])
         .map(|(((student, &ix), (kind, fid, acc)), ms)| {
             let m = &setup.models[ix];
-            let own = latency::summarize(ms, throughput(ix));
             let parameters = m.model.info.parameters;
             let mut c = Candidate {
                 rank: 0,
@@ -78,19 +78,21 @@ pub fn assemble(
                     parameter_ratio: (teacher_size.parameters > 0)
                         .then(|| parameters as f64 / teacher_size.parameters as f64),
                 },
-                latency: StudentLatency {
-                    speedup: teacher_latency.p50_ms / own.p50_ms,
-                    own,
-                },
+                latency: latency::summarize_against(ms, teacher_rounds, throughput(ix)),
                 pareto_optimal: false,
                 gates: Default::default(),
             };
-            c.gates = judge(&s.gates, &c, n);
+            let evidence = Evidence {
+                samples: n,
+                rounds: ms,
+                teacher_rounds,
+            };
+            c.gates = judge(&s.gates, &c, &evidence);
             c
         })
         .collect();
-    rank(&mut candidates, s.rank_by);
-    mark_pareto(&mut candidates, s.rank_by);
+    let rounds: Vec<&[f64]> = per_entry[1..].iter().map(Vec::as_slice).collect();
+    let candidates = rank(candidates, &rounds, s.rank_by, s.latency.tolerance);
     let (verdict, recommended) = verdict(&candidates);
     Report {
         evaluation: job.evaluation,
@@ -122,6 +124,7 @@ pub fn assemble(
             latency: teacher_latency,
         },
         candidates,
+        timings: Default::default(),
         verdict,
         recommended,
     }

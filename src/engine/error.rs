@@ -31,6 +31,11 @@ pub enum EngineError {
     #[error(transparent)]
     Settings(#[from] super::settings::SettingsError),
 
+    /// A figure came out NaN or infinite from finite outputs: the engine's
+    /// fault, never shown as a number.
+    #[error("the report's {0} is not a finite number")]
+    NonFinite(String),
+
     /// Reading or writing a file the engine owns failed.
     #[error("{context}: {source}")]
     Io {

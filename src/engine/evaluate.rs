@@ -22,7 +22,7 @@ use super::metrics::accuracy::{StudentInputs, accuracy, student_accuracy};
 use super::metrics::fidelity::fidelity;
 use super::model::Model;
 use super::setup::{Prepared, Setup, prepare};
-use crate::report::Report;
+use crate::report::{Report, StageTimes};
 
 /// What an evaluation produced: the report, and how it got there.
 pub struct Outcome {
@@ -99,7 +99,7 @@ pub fn evaluate(job: &Job, options: &Options, hooks: &Hooks<'_>) -> EngineResult
 
     let scores = score(job, &setup, &results, hooks);
     let throughput = |ix: usize| n as f64 / results[ix].engine_time.as_secs_f64().max(1e-12);
-    let report = assemble(
+    let mut report = assemble(
         job,
         &setup,
         scores,
@@ -108,6 +108,10 @@ pub fn evaluate(job: &Job, options: &Options, hooks: &Hooks<'_>) -> EngineResult
         threads.min(setup.models.len()),
     );
     clock.lap(Stage::Scoring);
+    report.timings = clock.times(job);
+    if let Some(path) = crate::report::first_non_finite(&report) {
+        return Err(EngineError::NonFinite(path));
+    }
     Ok(Outcome {
         report,
         teacher_from_cache,
@@ -134,6 +138,26 @@ impl StageClock {
         let now = Instant::now();
         self.laps.push((stage, now - self.since));
         self.since = now;
+    }
+
+    fn times(&self, job: &Job) -> StageTimes {
+        let of = |stage| {
+            self.laps
+                .iter()
+                .filter(|(s, _)| *s == stage)
+                .map(|(_, d)| d.as_secs_f64())
+                .sum()
+        };
+        let queued = job
+            .claimed_at
+            .map_or(0.0, |at| (at - job.created_at).as_seconds_f64().max(0.0));
+        StageTimes {
+            queued_s: queued,
+            loading_s: of(Stage::Loading),
+            bulk_s: of(Stage::Bulk),
+            timing_s: of(Stage::Timing),
+            scoring_s: of(Stage::Scoring),
+        }
     }
 }
 

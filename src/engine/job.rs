@@ -42,6 +42,9 @@ pub struct Job {
     pub students: Vec<ModelRef>,
     pub dataset: DatasetRef,
     pub settings: Settings,
+    /// When a worker claimed this attempt (for the report's queued time).
+    #[serde(default, with = "time::serde::rfc3339::option")]
+    pub claimed_at: Option<OffsetDateTime>,
 }
 
 impl Job {

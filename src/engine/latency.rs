@@ -9,8 +9,9 @@ use tract_onnx::prelude::*;
 
 use super::error::EngineResult;
 use super::model::{Plan, guarded};
-use super::stats::{mean, nearest_rank, sample_stdev};
-use crate::report::Latency;
+use super::speed::{CONFIDENCE_95, paired_median};
+use super::stats::{mean, nearest_rank, quantile_interval, sample_stdev};
+use crate::report::{Latency, StudentLatency};
 
 /// One timed model: its batch-1 plan and the samples it cycles through
 /// (already converted to its input types; slot r % len serves round r).
@@ -48,7 +49,9 @@ pub fn measure(
             let out = guarded("timed run", || state.run(inputs));
             let elapsed = started.elapsed();
             out?;
-            times[ix].push(elapsed.as_secs_f64() * 1e3);
+            // A run shorter than the clock can tell counts as 1 ns, so
+            // that every ratio of two runs is defined.
+            times[ix].push(elapsed.as_secs_f64().max(1e-9) * 1e3);
         }
         tick(1);
     }
@@ -61,10 +64,23 @@ pub fn summarize(ms: &[f64], throughput_sps: f64) -> Latency {
     sorted.sort_by(f64::total_cmp);
     Latency {
         p50_ms: nearest_rank(&sorted, 50),
+        p50_ci_ms: quantile_interval(ms, 0.5, CONFIDENCE_95),
         p90_ms: nearest_rank(&sorted, 90),
+        p90_ci_ms: quantile_interval(ms, 0.9, CONFIDENCE_95),
         p99_ms: nearest_rank(&sorted, 99),
         mean_ms: mean(ms),
         stdev_ms: sample_stdev(ms),
         throughput_sps,
+    }
+}
+
+/// A student's summary with its paired speedup over the reference
+/// (the teacher): the median over rounds of reference_ms / student_ms.
+pub fn summarize_against(ms: &[f64], reference: &[f64], throughput_sps: f64) -> StudentLatency {
+    let (speedup, speedup_ci) = paired_median(reference, ms, CONFIDENCE_95);
+    StudentLatency {
+        own: summarize(ms, throughput_sps),
+        speedup,
+        speedup_ci,
     }
 }

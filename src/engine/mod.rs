@@ -29,6 +29,7 @@ pub mod npy;
 pub mod ranking;
 pub mod settings;
 pub mod setup;
+pub mod speed;
 pub mod stats;
 
 pub use error::{EngineError, EngineResult};

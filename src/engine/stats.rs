@@ -1,6 +1,6 @@
 //! Small statistics used by the metrics: intervals, exact tests, percentiles.
 
-use statrs::distribution::{ContinuousCDF, Normal};
+use statrs::distribution::{Binomial, ContinuousCDF, DiscreteCDF, Normal};
 
 /// Two-sided z of a 95 % interval, Phi^-1(0.975), as metrics.md states it.
 pub const Z95: f64 = 1.959963984540054;
@@ -62,6 +62,41 @@ pub fn nearest_rank(sorted: &[f64], hundredths: u64) -> f64 {
     let n = sorted.len() as u64;
     let rank = (hundredths * n).div_ceil(100).max(1);
     sorted[(rank - 1) as usize]
+}
+
+/// The 1-based ranks (l, u) of the order statistics t(l) <= t(u) that bound
+/// the q-quantile of r values at `confidence` (Conover, Practical
+/// Nonparametric Statistics, 3rd ed., section 3.2): with B ~ Binomial(r, q),
+/// l is the smallest k with P(B <= k) >= (1 - c) / 2 and u is one more than
+/// the smallest k with P(B <= k) >= (1 + c) / 2, both clamped into [1, r].
+pub fn quantile_ranks(r: usize, q: f64, confidence: f64) -> (usize, usize) {
+    assert!(r >= 1, "a quantile needs at least one value");
+    let b = Binomial::new(q, r as u64).expect("q lies in [0, 1]");
+    // The smallest k in [0, r] with P(B <= k) >= level (P(B <= r) = 1).
+    let smallest = |level: f64| {
+        let (mut lo, mut hi) = (0u64, r as u64);
+        while lo < hi {
+            let mid = lo + (hi - lo) / 2;
+            if b.cdf(mid) >= level {
+                hi = mid;
+            } else {
+                lo = mid + 1;
+            }
+        }
+        lo as usize
+    };
+    let l = smallest((1.0 - confidence) / 2.0);
+    let u = smallest((1.0 + confidence) / 2.0) + 1;
+    (l.max(1), u.min(r))
+}
+
+/// The distribution-free interval of the q-quantile of `values` at
+/// `confidence`: [t(l), t(u)] of `quantile_ranks`.
+pub fn quantile_interval(values: &[f64], q: f64, confidence: f64) -> [f64; 2] {
+    let mut sorted = values.to_vec();
+    sorted.sort_by(f64::total_cmp);
+    let (l, u) = quantile_ranks(sorted.len(), q, confidence);
+    [sorted[l - 1], sorted[u - 1]]
 }
 
 pub fn mean(values: &[f64]) -> f64 {
@@ -144,6 +179,23 @@ mod tests {
         let h: Vec<f64> = (1..=100).map(f64::from).collect();
         assert_eq!(nearest_rank(&h, 99), 99.0);
         assert_eq!(nearest_rank(&h, 90), 90.0);
+    }
+
+    #[test]
+    fn quantile_ranks_of_100_values_around_the_median_are_40_and_61() {
+        // metrics.md: R = 100, q = 0.5 gives [t(40), t(61)]; scipy.stats.binom.ppf
+        // (0.025, 100, 0.5) = 40 and ppf(0.975, 100, 0.5) + 1 = 61 (the reference
+        // fixture checks many more R and q against scipy).
+        assert_eq!(quantile_ranks(100, 0.5, 0.95), (40, 61));
+        let v: Vec<f64> = (1..=100).rev().map(f64::from).collect();
+        assert_eq!(quantile_interval(&v, 0.5, 0.95), [40.0, 61.0]);
+    }
+
+    #[test]
+    fn quantile_ranks_are_clamped_to_the_values_there_are() {
+        // One value: the interval is that value; few values: the ends clamp.
+        assert_eq!(quantile_ranks(1, 0.5, 0.95), (1, 1));
+        assert_eq!(quantile_ranks(3, 0.9, 0.95), (1, 3));
     }
 
     #[test]

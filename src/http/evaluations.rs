@@ -40,6 +40,13 @@ pub(super) async fn report(
     Ok(([(header::CONTENT_TYPE, "application/json")], body).into_response())
 }
 
+pub(super) async fn timings(
+    State(app): State<App>,
+    Path(id): Path<String>,
+) -> Result<Response, AppError> {
+    Ok(Json(app.timings(path_id(&id, "evaluation")?).await?).into_response())
+}
+
 pub(super) async fn cancel(
     State(app): State<App>,
     Path(id): Path<String>,

@@ -88,6 +88,12 @@ fn table() -> Vec<(&'static str, &'static str, Kind, MethodRouter<App>)> {
             Bounded,
             get(evaluations::report),
         ),
+        (
+            "get",
+            "/v1/evaluations/{id}/timings",
+            Bounded,
+            get(evaluations::timings),
+        ),
         ("get", "/healthz", Bounded, get(health::healthz)),
         ("get", "/readyz", Bounded, get(health::readyz)),
         ("get", "/openapi.yaml", Bounded, get(openapi)),

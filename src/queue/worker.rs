@@ -11,6 +11,7 @@ use tokio_util::sync::CancellationToken;
 use tracing::Instrument;
 use uuid::Uuid;
 
+use crate::engine::Job;
 use crate::error::AppError;
 use crate::problem::Problem;
 use crate::sandbox::{Sandbox, SandboxError};
@@ -166,7 +167,10 @@ async fn execute(
         return Ok(());
     }
     let job = match store.job(record).await {
-        Ok(job) => job,
+        Ok(job) => Job {
+            claimed_at: Some(time::OffsetDateTime::now_utc()),
+            ..job
+        },
         Err(e) => {
             tracing::error!(error = %e, "preparing the evaluation failed");
             let p = AppError::from(e).problem();

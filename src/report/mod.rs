@@ -2,6 +2,10 @@
 //! only describe; the engine fills them and the service stores and serves
 //! them unchanged.
 
+mod finite;
+
+pub use finite::first_non_finite;
+
 use serde::{Deserialize, Serialize};
 use time::OffsetDateTime;
 use uuid::Uuid;
@@ -27,8 +31,31 @@ pub struct Report {
     pub dataset: DatasetSummary,
     pub teacher: TeacherEntry,
     pub candidates: Vec<Candidate>,
+    /// Where the evaluation's wall time went.
+    pub timings: StageTimes,
     pub verdict: Verdict,
     pub recommended: Option<Uuid>,
+}
+
+/// Every timed run of an evaluation (`GET /v1/evaluations/{id}/timings`):
+/// one row per round in round order, one column per model in `models`
+/// order (the teacher, then the candidates in request order), so that any
+/// latency figure of the report can be recomputed.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct RoundTimings {
+    pub models: Vec<Uuid>,
+    pub rounds: Vec<Vec<f64>>,
+}
+
+/// Seconds spent queued and in each stage the engine ran.
+#[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
+pub struct StageTimes {
+    /// From creation until a worker claimed the attempt that ran.
+    pub queued_s: f64,
+    pub loading_s: f64,
+    pub bulk_s: f64,
+    pub timing_s: f64,
+    pub scoring_s: f64,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -76,7 +103,10 @@ pub struct Size {
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Latency {
     pub p50_ms: f64,
+    /// Distribution-free 95 % interval of p50 (order statistics).
+    pub p50_ci_ms: [f64; 2],
     pub p90_ms: f64,
+    pub p90_ci_ms: [f64; 2],
     pub p99_ms: f64,
     pub mean_ms: f64,
     /// Sample standard deviation; null with a single iteration.
@@ -88,7 +118,9 @@ pub struct Latency {
 pub struct StudentLatency {
     #[serde(flatten)]
     pub own: Latency,
+    /// Median over rounds of teacher_ms / student_ms.
     pub speedup: f64,
+    pub speedup_ci: [f64; 2],
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -115,6 +147,23 @@ pub struct Candidate {
     pub latency: StudentLatency,
     pub pareto_optimal: bool,
     pub gates: GateOutcome,
+}
+
+/// A class index or a slice value: an integer or a string.
+#[derive(Debug, Clone, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize, Deserialize)]
+#[serde(untagged)]
+pub enum Key {
+    Int(i64),
+    Text(String),
+}
+
+impl std::fmt::Display for Key {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            Key::Int(i) => write!(f, "{i}"),
+            Key::Text(s) => f.write_str(s),
+        }
+    }
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]

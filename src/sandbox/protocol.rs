@@ -42,7 +42,8 @@ pub(super) enum Task {
 pub(super) enum FailureKind {
     /// The input cannot be used: a model, a set, or a request field.
     Input,
-    /// A file the engine owns could not be read or written.
+    /// The engine's own fault: a file it owns could not be read or
+    /// written, or a figure came out non-finite.
     Io,
 }
 
@@ -56,7 +57,7 @@ pub(super) struct Failure {
 impl From<&EngineError> for Failure {
     fn from(e: &EngineError) -> Self {
         let kind = match e {
-            EngineError::Io { .. } => FailureKind::Io,
+            EngineError::Io { .. } | EngineError::NonFinite(_) => FailureKind::Io,
             EngineError::InvalidModel(_)
             | EngineError::InvalidDataset(_)
             | EngineError::Mismatch(_)

@@ -16,6 +16,7 @@ use crate::engine::gates::Gates;
 use crate::engine::settings::{LatencySettings, OutputChoice, OutputKinds, RankBy, Settings};
 use crate::engine::{EngineError, Job};
 use crate::error::AppError;
+use crate::report::RoundTimings;
 use crate::sandbox::SandboxError;
 use crate::store::{
     AppliedRequest, CancelOutcome, DatasetRecord, EvaluationFilter, EvaluationRecord, ModelRecord,
@@ -234,6 +235,23 @@ impl App {
         }
     }
 
+    /// Every timed run of a succeeded evaluation.
+    pub async fn timings(&self, id: Uuid) -> Result<RoundTimings, AppError> {
+        let record = self.evaluation(id).await?;
+        let rounds = self
+            .store
+            .rounds(id)
+            .await?
+            .ok_or_else(|| not_yet(&record))?;
+        let r = &record.request;
+        Ok(RoundTimings {
+            models: std::iter::once(r.teacher)
+                .chain(r.students.iter().copied())
+                .collect(),
+            rounds,
+        })
+    }
+
     pub async fn cancel_evaluation(&self, id: Uuid) -> Result<EvaluationRecord, AppError> {
         match self.store.cancel(id).await? {
             CancelOutcome::Canceled(record) => {
@@ -254,7 +272,7 @@ impl App {
 /// The 409 of a report or timings asked for before the evaluation succeeded.
 fn not_yet(record: &EvaluationRecord) -> AppError {
     AppError::Conflict(format!(
-        "evaluation {} is {}; its report exists once it has succeeded",
+        "evaluation {} is {}; its report and timings exist once it has succeeded",
         record.id,
         record.status.as_str()
     ))

@@ -52,6 +52,7 @@ impl Store {
                 sha256: d.sha256,
             },
             settings: request.settings.clone(),
+            claimed_at: None,
         })
     }
 

@@ -1,6 +1,7 @@
 //! Headless Chromium through chromedriver, with the few actions the tests use.
 
-use std::net::TcpListener;
+use std::io::{BufRead, BufReader};
+use std::os::unix::process::CommandExt;
 use std::process::{Child, Command, Stdio};
 use std::time::{Duration, Instant};
 
@@ -11,7 +12,10 @@ use serde_json::{Value, json};
 
 pub struct Browser {
     client: Client,
+    /// chromedriver, leading its own process group, which holds the browser.
     driver: Child,
+    /// The browser's profile, removed with the browser.
+    _profile: tempfile::TempDir,
 }
 
 /// Elements found by CSS, with their attributes and text.
@@ -48,31 +52,43 @@ impl WebDriverCompatibleCommand for BrowserLog {
     }
 }
 
-fn free_port() -> u16 {
-    TcpListener::bind("127.0.0.1:0")
-        .unwrap()
-        .local_addr()
-        .unwrap()
-        .port()
+/// Starts chromedriver on a port the kernel picks, and reads which from the
+/// line it prints once it listens.
+fn start_driver() -> (Child, u16) {
+    let mut driver = Command::new("chromedriver")
+        .arg("--port=0")
+        .process_group(0)
+        .stdout(Stdio::piped())
+        .stderr(Stdio::null())
+        .spawn()
+        .expect("chromedriver is needed: apt-get install chromium chromium-driver");
+    let stdout = driver.stdout.take().unwrap();
+    let mut lines = BufReader::new(stdout).lines();
+    let port = loop {
+        let line = lines
+            .next()
+            .expect("chromedriver ended before it listened")
+            .unwrap();
+        if let Some(rest) = line.split("started successfully on port ").nth(1) {
+            break rest.trim_end_matches('.').trim().parse().unwrap();
+        }
+    };
+    // The rest of its output is drained so that it never blocks on a full pipe.
+    std::thread::spawn(move || lines.for_each(drop));
+    (driver, port)
 }
 
 impl Browser {
     pub async fn start() -> Browser {
-        let port = free_port();
-        let driver = Command::new("chromedriver")
-            .arg(format!("--port={port}"))
-            .stdout(Stdio::null())
-            .stderr(Stdio::null())
-            .spawn()
-            .expect("chromedriver is needed: apt-get install chromium chromium-driver");
-        let profile = tempfile::tempdir().unwrap().keep();
+        let (driver, port) = start_driver();
+        let profile = tempfile::tempdir().unwrap();
         let caps = json!({
             "goog:chromeOptions": {
                 "binary": "/usr/bin/chromium",
                 "args": ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
                          "--disable-background-networking", "--disable-component-update", "--disable-sync",
                          "--disable-dev-shm-usage", "--window-size=1280,1600",
-                         format!("--user-data-dir={}", profile.display())],
+                         format!("--user-data-dir={}", profile.path().display())],
             },
             "goog:loggingPrefs": {"browser": "ALL"},
         });
@@ -90,7 +106,11 @@ impl Browser {
                 Err(e) => panic!("cannot start a browser session: {e}"),
             }
         };
-        Browser { client, driver }
+        Browser {
+            client,
+            driver,
+            _profile: profile,
+        }
     }
 
     pub async fn open(&self, url: &str) {
@@ -226,15 +246,19 @@ impl Browser {
         std::fs::write(dir.join(format!("{name}.png")), png).unwrap();
     }
 
-    pub async fn close(mut self) {
+    pub async fn close(self) {
         let _ = self.client.clone().close().await;
-        let _ = self.driver.kill();
-        let _ = self.driver.wait();
     }
 }
 
 impl Drop for Browser {
+    /// Ends chromedriver and every browser process it started, however the
+    /// test ended, before the profile folder is removed.
     fn drop(&mut self) {
-        let _ = self.driver.kill();
+        // SAFETY: killpg on the process group this struct's child leads.
+        unsafe {
+            libc::killpg(self.driver.id() as i32, libc::SIGKILL);
+        }
+        let _ = self.driver.wait();
     }
 }

@@ -47,6 +47,7 @@ fn job(case: &str, students: &[&str], settings: Settings) -> Job {
         students: students.iter().map(|s| model_ref(case, s)).collect(),
         dataset: dataset_ref(&case_dir(case).join("data.npz")),
         settings,
+        claimed_at: None,
     }
 }
 

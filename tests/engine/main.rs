@@ -9,3 +9,4 @@ mod support;
 mod bad_inputs;
 mod evaluation;
 mod reference;
+mod timing;

@@ -3,7 +3,7 @@
 
 Builds small teacher and student ONNX models with random weights (fixed
 seeds), an evaluation set for each case, runs every model with onnxruntime on
-CPU, and computes every figure of shared/spec/metrics.md with numpy / scipy /
+CPU, and computes every figure of docs/metrics.md with numpy / scipy /
 statsmodels from onnxruntime's outputs.  Each figure is cross-checked against
 a second, independent computation before it is written.
 
@@ -956,6 +956,95 @@ def case_bad(mlp_teacher_path):
 
 
 # --------------------------------------------------------------------------
+# Latency from recorded rounds (docs/metrics.md, "Latency and throughput")
+
+def nearest_rank(values, q):
+    """sorted[ceil(q * R) - 1], with q exact (Fraction) so 0.9 * 100 is 90."""
+    s = np.sort(np.asarray(values, dtype=np.float64))
+    return float(s[math.ceil(Fraction(q) * len(s)) - 1])
+
+
+def quantile_ranks(r, q, confidence):
+    """1-based ranks of the order-statistic interval, from scipy.stats.binom.ppf
+    (Conover, Practical Nonparametric Statistics, 3rd ed., section 3.2)."""
+    lo = int(scipy.stats.binom.ppf((1 - confidence) / 2, r, q))
+    hi = int(scipy.stats.binom.ppf((1 + confidence) / 2, r, q)) + 1
+    return max(lo, 1), min(hi, r), lo, hi
+
+
+def quantile_interval(values, q, confidence=0.95):
+    s = np.sort(np.asarray(values, dtype=np.float64))
+    l, u, _, _ = quantile_ranks(len(s), q, confidence)
+    return [float(s[l - 1]), float(s[u - 1])]
+
+
+def pace(a, b, tol):
+    """A against B: faster, slower or equal, from the median ratio's 95 % interval."""
+    lo, hi = quantile_interval(np.asarray(a) / np.asarray(b), 0.5)
+    if hi < 1 / (1 + tol):
+        return "faster"
+    if lo > 1 + tol:
+        return "slower"
+    return "equal"
+
+
+def case_timing(seed=21):
+    folder = os.path.join(CASES, "timing")
+    os.makedirs(folder)
+    intervals = []
+    for r in list(range(1, 41)) + [59, 60, 99, 100, 101, 250, 1000, 100000]:
+        for q in (0.5, 0.9):
+            for c in (0.95, 0.9, 0.99):
+                l, u, raw_l, raw_u = quantile_ranks(r, q, c)
+                intervals.append({"r": r, "q": q, "confidence": c, "l": l, "u": u,
+                                  "ppf_low": raw_l, "ppf_high_plus_1": raw_u})
+    # The one worked example the definition gives: R = 100, q = 0.5 -> [t(40), t(61)].
+    assert quantile_ranks(100, 0.5, 0.95)[:2] == (40, 61)
+
+    rng = np.random.default_rng(seed)
+    rounds_n = 100
+    # A shared drift per round (the machine), and each model's own noise.
+    drift = np.exp(rng.normal(0, 0.05, rounds_n)) * np.where(np.arange(rounds_n) >= 60, 1.4, 1.0)
+    base = {"teacher": 2.0, "close": 0.5, "closer": 0.505, "slow": 1.2}
+    rounds = {name: (ms * drift * np.exp(rng.normal(0, 0.01, rounds_n))).tolist()
+              for name, ms in base.items()}
+    models = list(base)
+    figures = {}
+    for name in models:
+        x = np.asarray(rounds[name])
+        f = {"p50_ms": nearest_rank(x, "1/2"), "p50_ci_ms": quantile_interval(x, 0.5),
+             "p90_ms": nearest_rank(x, "9/10"), "p90_ci_ms": quantile_interval(x, 0.9),
+             "p99_ms": nearest_rank(x, "99/100"), "mean_ms": float(np.mean(x)),
+             "stdev_ms": float(np.std(x, ddof=1))}
+        if name != "teacher":
+            ratios = np.asarray(rounds["teacher"]) / x
+            f["speedup"] = nearest_rank(ratios, "1/2")
+            f["speedup_ci"] = quantile_interval(ratios, 0.5)
+        figures[name] = f
+    paces = {f"{a}/{b}": pace(rounds[a], rounds[b], 0.03) for a in models for b in models if a != b}
+    assert paces["close/closer"] == "equal" and paces["slow/close"] == "slower"
+    doc = {
+        "case": "timing",
+        "sources": {
+            "intervals": "scipy.stats.binom.ppf: l = ppf((1 - c) / 2, R, q), u = ppf((1 + c) / 2, R, q) + 1, "
+                         "clamped to [1, R] (Conover 1999, section 3.2)",
+            "figures": "numpy: nearest-rank percentiles with exact q, mean, std(ddof=1); paired median of "
+                       "teacher_ms / student_ms per round",
+            "paces": "the median ratio's 95 % interval against 1 / (1 + tol) and 1 + tol, tol = 0.03",
+        },
+        "intervals": intervals,
+        "models": models,
+        "rounds": [[rounds[m][i] for m in models] for i in range(rounds_n)],
+        "tolerance": 0.03,
+        "figures": figures,
+        "paces": paces,
+    }
+    with open(os.path.join(folder, "expected.json"), "w") as f:
+        json.dump(doc, f, indent=1, allow_nan=False)
+        f.write("\n")
+
+
+# --------------------------------------------------------------------------
 
 def main():
     if os.path.isdir(CASES):
@@ -1012,6 +1101,7 @@ def main():
     summary["unlabeled"] = (udoc, dropped)
 
     case_bad(os.path.join(CASES, "mlp", "teacher.onnx"))
+    case_timing()
 
     print(f"numpy {np.__version__}, scipy {scipy.__version__}, statsmodels {statsmodels.__version__}, "
           f"onnx {onnx.__version__}, onnxruntime {ort.__version__}")

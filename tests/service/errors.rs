@@ -166,10 +166,10 @@ async fn evaluations_that_cannot_run_are_refused_at_creation_with_the_field() {
 
 #[tokio::test]
 async fn a_report_asked_for_before_it_exists_is_409() {
-    let s = Server::start(&[]);
+    let s = Server::holding("bulk");
     let teacher = s.model_id(&case_dir("mlp").join("teacher.onnx")).await;
     let set = s.dataset_id(&case_dir("mlp").join("data.npz")).await;
-    let id = s.long_evaluation(&teacher, &[&teacher], &set).await;
+    let id = s.held_evaluation(&teacher, &[&teacher], &set, "bulk").await;
     assert_problem(&s.get(&format!("/v1/evaluations/{id}/report")).await, 409);
     s.delete(&format!("/v1/evaluations/{id}")).await;
 }

@@ -119,16 +119,19 @@ async fn lists_filter_by_project_teacher_and_status() {
 }
 
 #[tokio::test]
-async fn canceling_a_running_evaluation_stops_it_and_its_report_stays_unavailable() {
-    let s = Server::start(&[]);
+async fn canceling_a_running_evaluation_stops_its_engine_process_and_its_report_stays_unavailable()
+{
+    let s = Server::holding("timing");
     let (teacher, students, set) = upload_case(&s, "mlp", &["student_wide.onnx"]).await;
     let students: Vec<&str> = students.iter().map(String::as_str).collect();
-    let id = s.long_evaluation(&teacher, &students, &set).await;
-    s.wait_status(&id, "running", LONG).await;
+    let id = s.held_evaluation(&teacher, &students, &set, "timing").await;
+    assert_eq!(s.engine_processes(), 1, "the evaluation runs in its child");
     let c = s.delete(&format!("/v1/evaluations/{id}")).await;
     assert_eq!(c.status, 200, "{}", c.body);
     assert_eq!(c.body["status"], "canceled");
-    tokio::time::sleep(Duration::from_millis(300)).await;
+    s.wait_engine_processes(0, LONG).await;
+    // Released now, a child still alive would finish; none is, so nothing does.
+    s.release();
     assert_eq!(s.evaluation(&id).await["status"], "canceled");
     let r = s.get(&format!("/v1/evaluations/{id}/report")).await;
     assert_eq!(r.status, 409);

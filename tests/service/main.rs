@@ -7,7 +7,9 @@ mod support;
 mod errors;
 mod evaluations;
 #[path = "../support/server.rs"]
+#[allow(dead_code)]
 mod harness;
 mod openapi;
 mod resilience;
+mod sandbox;
 mod uploads;

@@ -64,15 +64,15 @@ async fn a_model_that_outputs_nan_fails_with_the_model_and_sample_named() {
     assert_eq!(done["error"]["status"], 422);
     let detail = done["error"]["detail"].as_str().unwrap();
     assert!(
-        detail.contains("nan_output") && detail.contains("NaN at sample"),
+        detail.contains("student 'nan_output' gave NaN for sample"),
         "{detail}"
     );
 }
 
 #[tokio::test]
-async fn after_kill_9_mid_evaluation_a_restart_completes_it_with_the_same_figures() {
+async fn after_kill_9_mid_evaluation_a_restart_completes_it_with_the_same_figures_on_attempt_2() {
     let dir = tempfile::tempdir().unwrap();
-    let mut s = Server::start_in(dir.path(), &[]);
+    let mut s = Server::holding_in(dir.path(), "timing");
     let teacher = s.model_id(&case_dir("mlp").join("teacher.onnx")).await;
     let student = s.model_id(&case_dir("mlp").join("student_wide.onnx")).await;
     let set = s.dataset_id(&case_dir("mlp").join("data.npz")).await;
@@ -80,16 +80,11 @@ async fn after_kill_9_mid_evaluation_a_restart_completes_it_with_the_same_figure
         json!({"teacher": teacher, "students": [student], "dataset": set,
                "latency": {"warmup": 0, "iterations": iterations}})
     };
-    let reference = s.create_evaluation(&body(5)).await.body["id"]
+    let id = s.create_evaluation(&body(5)).await.body["id"]
         .as_str()
         .unwrap()
         .to_string();
-    s.wait_finished(&reference, LONG).await;
-    let id = s.create_evaluation(&body(20000)).await.body["id"]
-        .as_str()
-        .unwrap()
-        .to_string();
-    s.wait_status(&id, "running", LONG).await;
+    s.wait_stage(&id, "timing", LONG).await;
     s.kill9();
 
     let s = Server::start_in(dir.path(), &[]);
@@ -100,6 +95,12 @@ async fn after_kill_9_mid_evaluation_a_restart_completes_it_with_the_same_figure
         "the restart did not find the interrupted evaluation:\n{log}"
     );
     assert_eq!(done["status"], "succeeded", "{done}");
+    assert_eq!(done["attempts"], 2, "the crash counted its attempt: {done}");
+    let reference = s.create_evaluation(&body(5)).await.body["id"]
+        .as_str()
+        .unwrap()
+        .to_string();
+    assert_eq!(s.wait_finished(&reference, LONG).await["attempts"], 1);
     let a = s
         .get(&format!("/v1/evaluations/{reference}/report"))
         .await
@@ -133,19 +134,26 @@ async fn two_evaluations_queued_at_once_both_finish() {
 }
 
 #[tokio::test]
-async fn sigterm_puts_a_running_evaluation_back_in_the_queue() {
+async fn sigterm_puts_a_running_evaluation_back_in_the_queue_without_counting_its_attempt() {
     let dir = tempfile::tempdir().unwrap();
-    let mut s = Server::start_in(dir.path(), &[]);
+    let mut s = Server::holding_in(dir.path(), "timing");
     let teacher = s.model_id(&case_dir("mlp").join("teacher.onnx")).await;
     let set = s.dataset_id(&case_dir("mlp").join("data.npz")).await;
-    let id = s.long_evaluation(&teacher, &[&teacher], &set).await;
-    s.wait_status(&id, "running", LONG).await;
+    let id = s
+        .held_evaluation(&teacher, &[&teacher], &set, "timing")
+        .await;
+    assert_eq!(s.evaluation(&id).await["attempts"], 1);
     assert!(s.terminate().success(), "a clean exit on SIGTERM");
-    let s = Server::start_in(dir.path(), &["--workers", "1"]);
-    let e = s.evaluation(&id).await;
+    let s = Server::start_in(dir.path(), &[]);
+    let log = std::fs::read_to_string(dir.path().join("server.log")).unwrap();
     assert!(
-        matches!(e["status"].as_str(), Some("queued" | "running")),
-        "{e}"
+        !log.contains("requeued=1"),
+        "the stop left it running for the restart to find:\n{log}"
     );
-    s.delete(&format!("/v1/evaluations/{id}")).await;
+    let done = s.wait_finished(&id, LONG).await;
+    assert_eq!(done["status"], "succeeded", "{done}");
+    assert_eq!(
+        done["attempts"], 1,
+        "a graceful stop gives its attempt back: {done}"
+    );
 }

@@ -2,7 +2,7 @@
 //! typed helper per endpoint.
 
 use std::io::{BufRead, BufReader};
-use std::path::Path;
+use std::path::{Path, PathBuf};
 use std::process::{Child, Command, Stdio};
 use std::time::{Duration, Instant};
 
@@ -11,9 +11,14 @@ use serde_json::Value;
 pub struct Server {
     child: Option<Child>,
     pub base: String,
+    data_dir: PathBuf,
     _dir: Option<tempfile::TempDir>,
     client: reqwest::Client,
 }
+
+/// The variable and file of the service's test-only hold (src/sandbox/hold.rs).
+const HOLD_AT: &str = "PROCTOR_TEST_HOLD_AT";
+const RELEASE_FILE: &str = "test-hold.release";
 
 /// A response: status, JSON body (Null when not JSON) and content type.
 pub struct Answer {
@@ -21,6 +26,7 @@ pub struct Answer {
     pub body: Value,
     pub content_type: String,
     pub location: Option<String>,
+    pub retry_after: Option<String>,
 }
 
 impl Server {
@@ -32,22 +38,42 @@ impl Server {
         s
     }
 
+    /// Starts a server on a fresh data dir whose evaluations stop at `stage`
+    /// (bulk, timing, scoring...) until `release` is called.
+    pub fn holding(stage: &str) -> Server {
+        let dir = tempfile::tempdir().unwrap();
+        let mut s = Server::holding_in(dir.path(), stage);
+        s._dir = Some(dir);
+        s
+    }
+
+    pub fn holding_in(data_dir: &Path, stage: &str) -> Server {
+        Server::launch(data_dir, &[], Some(stage))
+    }
+
     /// Starts a server on an existing data dir (to test restarts).
     pub fn start_in(data_dir: &Path, extra: &[&str]) -> Server {
+        Server::launch(data_dir, extra, None)
+    }
+
+    fn launch(data_dir: &Path, extra: &[&str], hold_at: Option<&str>) -> Server {
         let log = std::fs::OpenOptions::new()
             .create(true)
             .append(true)
             .open(data_dir.join("server.log"))
             .unwrap();
-        let mut child = Command::new(env!("CARGO_BIN_EXE_proctor"))
-            .arg("serve")
+        let mut cmd = Command::new(env!("CARGO_BIN_EXE_proctor"));
+        cmd.arg("serve")
             .args(["--listen", "127.0.0.1:0", "--data-dir"])
             .arg(data_dir)
             .args(extra)
+            .env_remove(HOLD_AT)
             .stdout(Stdio::piped())
-            .stderr(log)
-            .spawn()
-            .unwrap();
+            .stderr(log);
+        if let Some(stage) = hold_at {
+            cmd.env(HOLD_AT, stage);
+        }
+        let mut child = cmd.spawn().unwrap();
         let stdout = child.stdout.take().unwrap();
         let mut line = String::new();
         BufReader::new(stdout).read_line(&mut line).unwrap();
@@ -64,9 +90,53 @@ impl Server {
         Server {
             child: Some(child),
             base,
+            data_dir: data_dir.to_owned(),
             _dir: None,
             client: reqwest::Client::new(),
         }
+    }
+
+    pub fn data_dir(&self) -> &Path {
+        &self.data_dir
+    }
+
+    /// The server's engine processes alive now (its children, from /proc).
+    pub fn engine_processes(&self) -> usize {
+        let Some(pid) = self.child.as_ref().map(Child::id) else {
+            return 0;
+        };
+        let Ok(dir) = std::fs::read_dir("/proc") else {
+            return 0;
+        };
+        dir.filter_map(Result::ok)
+            .filter_map(|e| std::fs::read_to_string(e.path().join("stat")).ok())
+            .filter(|stat| {
+                // pid (comm) state ppid ...: the comm may hold spaces, so
+                // fields are read after its closing parenthesis.
+                stat.rsplit_once(')')
+                    .and_then(|(_, rest)| rest.split_whitespace().nth(1))
+                    .and_then(|ppid| ppid.parse::<u32>().ok())
+                    == Some(pid)
+            })
+            .count()
+    }
+
+    /// Polls until the server has `n` engine processes.
+    pub async fn wait_engine_processes(&self, n: usize, limit: Duration) {
+        let start = Instant::now();
+        while self.engine_processes() != n {
+            assert!(
+                start.elapsed() < limit,
+                "the server still has {} engine processes, not {n}",
+                self.engine_processes()
+            );
+            tokio::time::sleep(Duration::from_millis(25)).await;
+        }
+    }
+
+    /// Lets evaluations held at their stage go on.
+    pub fn release(&self) {
+        std::fs::write(self.data_dir.join(RELEASE_FILE), b"").unwrap();
     }
 
     /// Kills the server with SIGKILL, as a crash would.
@@ -96,6 +166,7 @@ impl Server {
         };
         let content_type = header("content-type").unwrap_or_default();
         let location = header("location");
+        let retry_after = header("retry-after");
         let text = res.text().await.unwrap();
         let body = serde_json::from_str(&text).unwrap_or(Value::Null);
         Answer {
@@ -103,6 +174,7 @@ impl Server {
             body,
             content_type,
             location,
+            retry_after,
         }
     }
 
@@ -185,14 +257,45 @@ impl Server {
             .await
     }
 
-    /// Queues an evaluation that keeps running for a long while (100,000
-    /// latency rounds) and returns its id, for tests that need one running.
-    pub async fn long_evaluation(&self, teacher: &str, students: &[&str], set: &str) -> String {
+    /// Queues an evaluation and returns its id once it runs at `stage`; the
+    /// server must hold there (`Server::holding`).
+    pub async fn held_evaluation(
+        &self,
+        teacher: &str,
+        students: &[&str],
+        set: &str,
+        stage: &str,
+    ) -> String {
         let body = serde_json::json!({"teacher": teacher, "students": students, "dataset": set,
-            "latency": {"warmup": 0, "iterations": 100000}});
+            "latency": {"warmup": 0, "iterations": 5}});
         let a = self.create_evaluation(&body).await;
         assert_eq!(a.status, 202, "{}", a.body);
-        a.body["id"].as_str().unwrap().to_string()
+        let id = a.body["id"].as_str().unwrap().to_string();
+        self.wait_stage(&id, stage, Duration::from_secs(120)).await;
+        id
+    }
+
+    /// Polls until the evaluation runs at `stage`.
+    pub async fn wait_stage(&self, id: &str, stage: &str, limit: Duration) -> Value {
+        let start = Instant::now();
+        loop {
+            let e = self.evaluation(id).await;
+            if e["status"] == "running" && e["progress"]["stage"] == stage {
+                return e;
+            }
+            assert!(
+                !matches!(
+                    e["status"].as_str(),
+                    Some("succeeded" | "failed" | "canceled")
+                ),
+                "evaluation {id} ended before reaching {stage}: {e}"
+            );
+            assert!(
+                start.elapsed() < limit,
+                "evaluation {id} never reached {stage}: {e}"
+            );
+            tokio::time::sleep(Duration::from_millis(25)).await;
+        }
     }
 
     pub async fn evaluation(&self, id: &str) -> Value {
@@ -216,23 +319,6 @@ impl Server {
                 e["status"]
             );
             tokio::time::sleep(Duration::from_millis(100)).await;
-        }
-    }
-
-    /// Polls until the evaluation's status is `status`.
-    pub async fn wait_status(&self, id: &str, status: &str, limit: Duration) -> Value {
-        let start = Instant::now();
-        loop {
-            let e = self.evaluation(id).await;
-            if e["status"] == status {
-                return e;
-            }
-            assert!(
-                start.elapsed() < limit,
-                "evaluation {id} is {} and never {status}",
-                e["status"]
-            );
-            tokio::time::sleep(Duration::from_millis(50)).await;
         }
     }
 }

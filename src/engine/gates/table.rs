@@ -79,11 +79,13 @@ gate_table! {
     MinRetention => min_retention, Labels;
     MaxNegativeFlipRate => max_negative_flip_rate, Labels;
     MaxEce => max_ece, Labels;
+    MaxP50Ms => max_p50_ms, Nothing;
     MaxP90Ms => max_p90_ms, Nothing;
     MinSpeedup => min_speedup, Nothing;
     MaxBytes => max_bytes, Nothing;
     MaxSizeRatio => max_size_ratio, Nothing;
     MaxParameters => max_parameters, Nothing;
+    MinClassAgreement => min_class_agreement, Nothing;
 }
 
 impl GateName {

@@ -141,15 +141,29 @@ pub fn student_accuracy(inp: &StudentInputs<'_>) -> StudentAccuracy {
 mod tests {
     use super::*;
 
+    /// Logits [a, 0] whose top class has softmax probability `p`.
+    fn with_confidence(p: f64) -> [f64; 2] {
+        [(p / (1.0 - p)).ln(), 0.0]
+    }
+
     #[test]
-    fn a_confidence_of_exactly_one_fifteenth_falls_in_the_first_bin() {
-        // metrics.md: bin m holds ((m-1)/15, m/15]. Two classes with p = 1/15 can't
-        // happen, so check the edge through a certain prediction: confidence 1 -> bin 15.
+    fn a_certain_prediction_falls_in_the_last_bin() {
+        // metrics.md: bin m holds ((m-1)/15, m/15], so confidence 1 is in bin 15.
+        // Both predictions are class 0 with confidence 1; one is right: ECE = |0.5 - 1|.
         let z = Logits::from_rows(2, vec![0.0, -1000.0, 0.0, -1000.0]);
         let a = accuracy(&z, &[0, 1]);
-        // Both predictions are class 0 with confidence 1; one is right: ECE = |0.5 - 1|.
         assert_eq!(a.top1, 0.5);
-        assert!((a.ece - 0.5).abs() < 1e-15);
+        assert!((a.ece - 0.5).abs() < 1e-15, "{}", a.ece);
+    }
+
+    #[test]
+    fn samples_in_different_bins_are_weighed_by_their_own_bin() {
+        // Guo et al. 2017, eq. 3: confidence 0.6 (bin 9) right, 0.9 (bin 14) wrong:
+        // ECE = 0.5 * |1 - 0.6| + 0.5 * |0 - 0.9| = 0.65. One shared bin would
+        // give |0.5 - 0.75| = 0.25 instead.
+        let rows = [with_confidence(0.6), with_confidence(0.9)].concat();
+        let a = accuracy(&Logits::from_rows(2, rows), &[0, 1]);
+        assert!((a.ece - 0.65).abs() < 1e-12, "{}", a.ece);
     }
 
     #[test]

@@ -13,6 +13,9 @@ pub struct ClassAgreement {
     pub class: usize,
     pub samples: u64,
     pub agreement: f64,
+    /// Of `samples`, those the student predicts as the teacher does.
+    #[serde(skip)]
+    pub agreed: u64,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -160,6 +163,7 @@ pub fn fidelity(teacher: &Logits, student: &Logits, temperature: f64) -> Fidelit
                 class,
                 samples,
                 agreement: agree as f64 / samples as f64,
+                agreed: agree,
             })
             .collect(),
         disagreements,
