@@ -32,7 +32,7 @@ pub fn junit(r: &Report) -> String {
         let failed = c.gates.checks.iter().filter(|k| !k.passed).count();
         out += &format!(
             "  <testsuite name=\"{}\" id=\"{}\" tests=\"{}\" failures=\"{failed}\">\n",
-            escape(&format!("{} (rank {})", c.model.name, c.rank)),
+            escape(&c.model.name),
             c.model.id,
             c.gates.checks.len()
         );

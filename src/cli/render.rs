@@ -1,6 +1,9 @@
 //! A report as a reviewer reads it first: a ranked table (terminal or
-//! Markdown), the teacher as the reference row, figures rounded for reading.
+//! Markdown) with the teacher as the reference row, every failed gate in
+//! words, figures rounded for reading.
 
+use crate::engine::gates::GateCheck;
+use crate::report::numbers::{interval, significant};
 use crate::report::{Candidate, Report, Verdict};
 
 const HEADERS: [&str; 10] = [
@@ -10,36 +13,62 @@ const HEADERS: [&str; 10] = [
     "kl",
     "top1",
     "Δtop1",
-    "p90 ms",
+    "p90 ms [95% CI]",
     "speedup",
-    "size",
+    "size ratio",
     "gates",
 ];
 
-fn opt(v: Option<f64>, digits: usize) -> String {
-    v.map_or("—".into(), |x| format!("{x:.digits$}"))
+/// Columns read left-aligned (names and words); the rest are numbers.
+const LEFT: [usize; 2] = [1, 9];
+
+fn opt(v: Option<f64>) -> String {
+    v.map_or("—".into(), |x| format!("{x:.4}"))
 }
 
-/// In words, not colour: "pass", or the first failed gate with its figures.
-pub fn gate_text(c: &Candidate) -> String {
-    if c.gates.checks.is_empty() {
-        return "no gates".into();
-    }
-    match c.gates.checks.iter().find(|k| !k.passed) {
-        None => format!("pass ({})", c.gates.checks.len()),
-        Some(k) => match (&k.reason, k.judged) {
-            (Some(r), _) => format!("FAIL {}: {r}", k.gate),
-            (None, Some(j)) => format!("FAIL {} ({} vs {})", k.gate, short(j), short(k.threshold)),
-            (None, None) => format!("FAIL {}", k.gate),
-        },
-    }
-}
-
-fn short(x: f64) -> String {
-    if x.abs() >= 1000.0 {
-        format!("{x:.0}")
+/// The model column: the name, and the role when the name does not say it.
+fn named(name: &str, role: &str) -> String {
+    if name == role {
+        name.to_string()
     } else {
-        format!("{x:.4}")
+        format!("{name} ({role})")
+    }
+}
+
+/// In words, not colour: how many gates pass; the failures are listed below.
+pub fn gate_text(c: &Candidate) -> String {
+    let total = c.gates.checks.len();
+    let failed = c.gates.checks.iter().filter(|k| !k.passed).count();
+    match (total, failed) {
+        (0, _) => "no gates".into(),
+        (t, 0) => format!("pass {t}/{t}"),
+        (t, f) => format!("FAIL {f} of {t}"),
+    }
+}
+
+/// One failed check in full: the value judged, what it is, the threshold.
+pub fn failure_text(k: &GateCheck, confidence: Option<f64>) -> String {
+    let at =
+        k.at.as_ref()
+            .map(|a| format!(" at {a}"))
+            .unwrap_or_default();
+    match (&k.reason, k.judged) {
+        (Some(reason), _) => format!("{}{at}: {reason}", k.gate),
+        (None, Some(judged)) => {
+            let what = k.gate.judged_as(confidence);
+            let estimate = match k.estimate {
+                Some(e) if what != "estimate" => format!(", estimate {}", significant(e)),
+                _ => String::new(),
+            };
+            format!(
+                "{}{at}: judged {} ({what}{estimate}); passes when {} {}",
+                k.gate,
+                significant(judged),
+                k.gate.passes_when(),
+                significant(k.threshold)
+            )
+        }
+        (None, None) => format!("{}{at}: no figure to judge", k.gate),
     }
 }
 
@@ -47,14 +76,18 @@ fn rows(r: &Report) -> Vec<[String; 10]> {
     let t = &r.teacher;
     let mut out = vec![[
         "ref".into(),
-        format!("{} (teacher)", t.model.name),
+        named(&t.model.name, "teacher"),
         "—".into(),
         "—".into(),
-        opt(t.accuracy.as_ref().map(|a| a.top1), 4),
+        opt(t.accuracy.as_ref().map(|a| a.top1)),
         "—".into(),
-        format!("{:.3}", t.latency.p90_ms),
-        "1.00×".into(),
-        "1.000".into(),
+        format!(
+            "{} {}",
+            significant(t.latency.p90_ms),
+            interval(t.latency.p90_ci_ms)
+        ),
+        "1×".into(),
+        "1".into(),
         "—".into(),
     ]];
     for c in &r.candidates {
@@ -68,11 +101,15 @@ fn rows(r: &Report) -> Vec<[String; 10]> {
             ),
             format!("{:.4}", c.fidelity.agreement),
             format!("{:.4}", c.fidelity.kl),
-            opt(acc.map(|a| a.own.top1), 4),
+            opt(acc.map(|a| a.own.top1)),
             acc.map_or("—".into(), |a| format!("{:+.4}", a.delta)),
-            format!("{:.3}", c.latency.own.p90_ms),
-            format!("{:.2}×", c.latency.speedup),
-            format!("{:.3}", c.size.size_ratio),
+            format!(
+                "{} {}",
+                significant(c.latency.own.p90_ms),
+                interval(c.latency.own.p90_ci_ms)
+            ),
+            format!("{}×", significant(c.latency.speedup)),
+            significant(c.size.size_ratio),
             gate_text(c),
         ]);
     }
@@ -95,6 +132,50 @@ fn verdict_line(r: &Report) -> String {
     }
 }
 
+/// The gates as set, e.g. "min_agreement >= 0.9, max_p90_ms <= 5; judged at
+/// the cautious end of 95 % intervals".
+fn gates_line(r: &Report) -> String {
+    let g = &r.settings.gates;
+    if g.is_empty() {
+        return "gates: none".into();
+    }
+    let list: Vec<String> = g
+        .thresholds()
+        .into_iter()
+        .map(|(gate, v)| format!("{gate} {} {}", gate.passes_when(), significant(v)))
+        .collect();
+    let how = match g.confidence {
+        Some(c) => format!(
+            "interval gates judged at their cautious end at {} confidence",
+            significant(c)
+        ),
+        None => "judged on the estimates".into(),
+    };
+    format!("gates: {}; {how}", list.join(", "))
+}
+
+/// Every failed check of every candidate, in rank order.
+fn failures(r: &Report) -> Vec<(String, String)> {
+    r.candidates
+        .iter()
+        .flat_map(|c| {
+            c.gates.checks.iter().filter(|k| !k.passed).map(|k| {
+                (
+                    c.model.name.clone(),
+                    failure_text(k, r.settings.gates.confidence),
+                )
+            })
+        })
+        .collect()
+}
+
+fn rank_name(r: &Report) -> String {
+    serde_json::to_value(r.settings.rank_by)
+        .ok()
+        .and_then(|v| v.as_str().map(str::to_string))
+        .unwrap_or_default()
+}
+
 /// The plain-text table for a terminal or a CI log.
 pub fn table(r: &Report) -> String {
     let rows = rows(r);
@@ -113,7 +194,7 @@ pub fn table(r: &Report) -> String {
             .zip(&widths)
             .enumerate()
             .map(|(i, (c, w))| {
-                if i == 1 || i == 9 {
+                if LEFT.contains(&i) {
                     format!("{c:<w$}")
                 } else {
                     format!("{c:>w$}")
@@ -129,25 +210,36 @@ pub fn table(r: &Report) -> String {
     out.extend(rows.iter().map(|row| line(row)));
     out.push(String::new());
     out.push(format!(
-        "{} samples of '{}', T = {}, ranked by {}; * marks the Pareto front (quality, p50, bytes)",
+        "{} samples of '{}', T = {}, ranked by {}; * marks the Pareto front (quality, speed, bytes)",
         r.dataset.samples,
         r.dataset.name,
         r.settings.temperature,
-        serde_json::to_value(r.settings.rank_by)
-            .ok()
-            .and_then(|v| v.as_str().map(str::to_string))
-            .unwrap_or_default()
+        rank_name(r)
     ));
+    out.push(gates_line(r));
+    let failed = failures(r);
+    if !failed.is_empty() {
+        out.push("failed gates:".into());
+        for (model, text) in failed {
+            out.push(format!("  {model}: {text}"));
+        }
+    }
     out.push(verdict_line(r));
     out.join("\n") + "\n"
 }
 
-/// A Markdown summary for CI job pages.
-pub fn markdown(r: &Report, link: Option<&str>) -> String {
+fn md_cell(text: &str) -> String {
+    text.replace('|', "\\|")
+}
+
+/// A Markdown summary for CI job pages; `page` links to the evaluation's
+/// dashboard page and `json` to its report.
+pub fn markdown(r: &Report, page: Option<&str>, json: Option<&str>) -> String {
     let mut out = format!(
-        "## Proctor evaluation `{}`\n\n**{}**\n\n",
+        "## Proctor evaluation `{}`\n\n**{}**\n\n{}\n\n",
         r.evaluation,
-        verdict_line(r)
+        verdict_line(r),
+        gates_line(r)
     );
     out += &format!(
         "| {} |\n|{}|\n",
@@ -155,16 +247,67 @@ pub fn markdown(r: &Report, link: Option<&str>) -> String {
         HEADERS.map(|_| "---").join("|")
     );
     for row in rows(r) {
-        let cells: Vec<String> = row.iter().map(|c| c.replace('|', "\\|")).collect();
+        let cells: Vec<String> = row.iter().map(|c| md_cell(c)).collect();
         out += &format!("| {} |\n", cells.join(" | "));
     }
     out += &format!(
-        "\n{} samples of `{}`; temperature {}; * marks the Pareto front.\n",
-        r.dataset.samples, r.dataset.name, r.settings.temperature
+        "\n{} samples of `{}`; temperature {}; ranked by {}; * marks the Pareto front.\n",
+        r.dataset.samples,
+        md_cell(&r.dataset.name),
+        r.settings.temperature,
+        rank_name(r)
     );
-    if let Some(l) = link {
-        out += &format!("\nFull report: {l}\n");
+    let failed = failures(r);
+    if !failed.is_empty() {
+        out += "\n**Failed gates**\n\n";
+        for (model, text) in failed {
+            out += &format!("- `{}`: {}\n", md_cell(&model), md_cell(&text));
+        }
+    }
+    match (page, json) {
+        (Some(p), Some(j)) => out += &format!("\n[Dashboard page]({p}) · [JSON report]({j})\n"),
+        (Some(p), None) => out += &format!("\n[Dashboard page]({p})\n"),
+        (None, Some(j)) => out += &format!("\n[JSON report]({j})\n"),
+        (None, None) => {}
     }
     out += "\nFigures on an evaluation set do not guarantee behaviour on live data.\n";
     out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::engine::gates::GateName;
+
+    fn check(gate: GateName, judged: f64, estimate: f64, threshold: f64) -> GateCheck {
+        GateCheck {
+            gate,
+            threshold,
+            judged: Some(judged),
+            estimate: Some(estimate),
+            passed: false,
+            at: None,
+            reason: None,
+        }
+    }
+
+    #[test]
+    fn a_failure_says_what_was_judged_and_at_what_confidence() {
+        let k = check(GateName::MinAgreement, 0.881_234_5, 0.893, 0.9);
+        assert_eq!(
+            failure_text(&k, Some(0.95)),
+            "min_agreement: judged 0.8812 (Wilson lower bound at 95 %, estimate 0.893); \
+             passes when >= 0.9"
+        );
+        assert_eq!(
+            failure_text(&k, None),
+            "min_agreement: judged 0.8812 (estimate); passes when >= 0.9"
+        );
+    }
+
+    #[test]
+    fn a_role_is_named_only_when_the_name_does_not_say_it() {
+        assert_eq!(named("teacher", "teacher"), "teacher");
+        assert_eq!(named("resnet-big", "teacher"), "resnet-big (teacher)");
+    }
 }

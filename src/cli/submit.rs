@@ -239,12 +239,10 @@ pub fn publish(args: &SubmitArgs, report: &Report, raw: &str) -> Result<(), Exit
         write(p, junit::junit(report))?;
     }
     if let Some(p) = &args.summary {
-        let link = format!(
-            "{}/v1/evaluations/{}/report",
-            args.server.trim_end_matches('/'),
-            report.evaluation
-        );
-        write(p, render::markdown(report, Some(&link)))?;
+        let base = args.server.trim_end_matches('/');
+        let page = format!("{base}/evaluations/{}", report.evaluation);
+        let json = format!("{base}/v1/evaluations/{}/report", report.evaluation);
+        write(p, render::markdown(report, Some(&page), Some(&json)))?;
     }
     Ok(())
 }

@@ -1,6 +1,6 @@
-//! The teacher's offline scores, kept on disk by (teacher SHA-256, set
+//! The teacher's bulk-pass scores, kept on disk by (teacher SHA-256, set
 //! SHA-256, output name), so that a later evaluation of new students against
-//! the same teacher and set does not run the teacher's offline pass again.
+//! the same teacher and set does not run the teacher's bulk pass again.
 //!
 //! Scores are stored as an NPY float64 [N, C] array (readable with
 //! `numpy.load`) beside a small JSON file with the engine time per batch size

@@ -53,7 +53,7 @@ pub fn bind(info: &ModelInfo, arrays: &[ArrayInfo], label: &str) -> EngineResult
         && *b != 1
     {
         return Err(mismatch(format!(
-            "model '{label}' has its batch axis fixed to {b}; single-stream latency runs one \
+            "model '{label}' has its batch axis fixed to {b}; the timed rounds run one \
              sample at a time, so export it with a symbolic or unit batch axis"
         )));
     }

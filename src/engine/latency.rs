@@ -1,4 +1,4 @@
-//! Single-stream latency (metrics.md, "Latency and throughput"): batch of 1,
+//! The timed rounds (metrics.md, "Latency and throughput"): batch of 1,
 //! the same sample for every model in a round, every model once per round in
 //! an order rotated by one each round, each run timed around the engine call
 //! alone. Runs on the calling thread; the caller makes sure nothing else runs.

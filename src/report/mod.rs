@@ -3,6 +3,7 @@
 //! them unchanged.
 
 mod finite;
+pub mod numbers;
 
 pub use finite::first_non_finite;
 

@@ -3,6 +3,8 @@
 
 use maud::{Markup, html};
 
+use crate::report::numbers::{interval, significant};
+
 const W: f64 = 520.0;
 const H: f64 = 320.0;
 const PAD_L: f64 = 66.0;
@@ -84,6 +86,8 @@ fn frame(
 pub(super) struct Point {
     pub name: String,
     pub x: f64,
+    /// The 95 % interval of x, drawn as whiskers.
+    pub x_ci: [f64; 2],
     pub y: f64,
     pub bytes: u64,
     pub front: bool,
@@ -91,7 +95,11 @@ pub(super) struct Point {
 
 /// Quality against p50 latency, marker area by file size, the Pareto front drawn.
 pub(super) fn scatter(points: &[Point], x_label: &str, y_label: &str, summary: &str) -> Markup {
-    let x = Scale::new(points.iter().map(|p| p.x), PAD_L, W - PAD_R);
+    let x = Scale::new(
+        points.iter().flat_map(|p| [p.x, p.x_ci[0], p.x_ci[1]]),
+        PAD_L,
+        W - PAD_R,
+    );
     let y = Scale::new(points.iter().map(|p| p.y), H - PAD_B, PAD_T);
     let max_bytes = points.iter().map(|p| p.bytes).max().unwrap_or(1).max(1) as f64;
     // Area proportional to bytes: the radius goes with the square root.
@@ -110,9 +118,12 @@ pub(super) fn scatter(points: &[Point], x_label: &str, y_label: &str, summary: &
                 polyline class="front-line" points=(path.join(" ")) {}
             }
             @for p in points {
+                line class="whisker" x1=(format!("{:.1}", x.at(p.x_ci[0]))) x2=(format!("{:.1}", x.at(p.x_ci[1])))
+                    y1=(format!("{:.1}", y.at(p.y))) y2=(format!("{:.1}", y.at(p.y))) {}
                 circle class=(if p.front { "marker front" } else { "marker" }) data-model=(p.name)
                     cx=(format!("{:.1}", x.at(p.x))) cy=(format!("{:.1}", y.at(p.y))) r=(format!("{:.1}", radius(p.bytes))) {
-                    title { (format!("{}: {y_label} {}, {x_label} {}, {} bytes{}", p.name, p.y, p.x, p.bytes,
+                    title { (format!("{}: {y_label} {}, {x_label} {} (95 % interval {}), {} bytes{}", p.name,
+                        significant(p.y), significant(p.x), interval(p.x_ci), p.bytes,
                         if p.front { ", on the Pareto front" } else { "" })) }
                 }
                 // Names go right of their marker, or left of it near the right edge.

@@ -4,9 +4,12 @@
 use maud::{Markup, html};
 
 use super::charts::{Point, scatter};
-use super::format::{bytes, exact, interval, ms, prop, ratio, rfc3339, short_id, signed, when};
+use super::format::{
+    bytes, exact, interval, ms, ms_interval, prop, ratio, rfc3339, short_id, signed, when,
+};
 use super::layout::{page, verdict_badge};
 use crate::engine::settings::RankBy;
+use crate::report::numbers::significant;
 use crate::report::{Candidate, Report};
 use crate::service::{EvaluationView, ReportView};
 use crate::store::Status;
@@ -16,7 +19,7 @@ fn num(text: String, value: f64) -> Markup {
     html! { span title=(exact(value)) { (text) } }
 }
 
-fn gates_cell(c: &Candidate) -> Markup {
+fn gates_cell(c: &Candidate, confidence: Option<f64>) -> Markup {
     html! {
         @if c.gates.checks.is_empty() {
             span { "no gates" }
@@ -26,10 +29,16 @@ fn gates_cell(c: &Candidate) -> Markup {
             ul.fail {
                 @for k in c.gates.checks.iter().filter(|k| !k.passed) {
                     li {
-                        "fails " (k.gate) ": "
+                        "fails " (k.gate)
+                        @if let Some(at) = &k.at { " at " (at) }
+                        ": "
                         @match (&k.reason, k.judged) {
                             (Some(r), _) => (r),
-                            (None, Some(j)) => { "judged " (num(format!("{j:.4}"), j)) " against " (k.threshold) }
+                            (None, Some(j)) => {
+                                "judged " (num(significant(j), j))
+                                " (" (k.gate.judged_as(confidence)) "), needs "
+                                (k.gate.passes_when()) " " (significant(k.threshold))
+                            }
                             (None, None) => "no figure",
                         }
                     }
@@ -62,7 +71,8 @@ fn candidates_table(r: &Report) -> Markup {
                             None => "—",
                         } }
                         td.num { "—" }
-                        td.num { (num(ms(t.latency.p90_ms), t.latency.p90_ms)) }
+                        td.num { (num(ms(t.latency.p90_ms), t.latency.p90_ms)) br;
+                            span.ci { (ms_interval(t.latency.p90_ci_ms)) } }
                         td.num { "1.00×" } td.num { "1.000" } td { "—" }
                     }
                     @for c in &r.candidates {
@@ -79,16 +89,19 @@ fn candidates_table(r: &Report) -> Markup {
                                 }
                                 None => { td.num { "—" } td.num { "—" } }
                             }
-                            td.num { (num(ms(c.latency.own.p90_ms), c.latency.own.p90_ms)) }
-                            td.num { (num(format!("{:.2}×", c.latency.speedup), c.latency.speedup)) }
+                            td.num { (num(ms(c.latency.own.p90_ms), c.latency.own.p90_ms)) br;
+                                span.ci { (ms_interval(c.latency.own.p90_ci_ms)) } }
+                            td.num { (num(format!("{}×", significant(c.latency.speedup)), c.latency.speedup)) br;
+                                span.ci { (interval(c.latency.speedup_ci)) } }
                             td.num { (num(ratio(c.size.size_ratio), c.size.size_ratio)) }
-                            td { (gates_cell(c)) }
+                            td { (gates_cell(c, r.settings.gates.confidence)) }
                         }
                     }
                 }
             }
         }
-        p.ci { "◆ on the Pareto front (quality, p50 latency, bytes). Intervals are 95 %: Wilson for proportions, paired Wald for Δ top-1." }
+        p.ci { "◆ on the Pareto front (quality, speed, bytes). Intervals are 95 %: Wilson for proportions, \
+            paired Wald for Δ top-1, order statistics for latency and for the per-round speedup over the teacher." }
     }
 }
 
@@ -111,6 +124,7 @@ fn scatter_of(r: &Report) -> Markup {
         .map(|c| Point {
             name: c.model.name.clone(),
             x: c.latency.own.p50_ms,
+            x_ci: c.latency.own.p50_ci_ms,
             y: if by_top1 {
                 c.accuracy.as_ref().map_or(0.0, |a| a.own.top1)
             } else {
@@ -121,7 +135,7 @@ fn scatter_of(r: &Report) -> Markup {
         })
         .collect();
     let summary = format!(
-        "{quality} against p50 latency for {} candidates; marker area by file size; the dashed line joins the Pareto front",
+        "{quality} against p50 latency for {} candidates, with 95 % intervals of p50 as whiskers; marker area by file size; the dashed line joins the Pareto front",
         points.len()
     );
     scatter(&points, "p50 latency (ms)", quality, &summary)

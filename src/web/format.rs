@@ -29,6 +29,11 @@ pub(super) fn interval(ci: [f64; 2]) -> String {
     format!("[{:.3}, {:.3}]", ci[0], ci[1])
 }
 
+/// A latency interval in ms, each end rounded as `ms` rounds.
+pub(super) fn ms_interval(ci: [f64; 2]) -> String {
+    format!("[{}, {}]", ms(ci[0]), ms(ci[1]))
+}
+
 pub(super) fn exact(v: f64) -> String {
     format!("{v}")
 }

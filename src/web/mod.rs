@@ -1,5 +1,5 @@
 //! The shared dashboard: server-rendered pages under `/` reading the same
-//! data the API serves. No script and no external asset: it works offline
+//! data the API serves. No script and no external asset: it works without a network
 //! and reads without colour (verdicts and failed gates are said in words).
 
 mod charts;

@@ -62,9 +62,16 @@ async fn a_candidate_that_passes_exits_0_with_the_teacher_as_the_reference_row()
         lines[0].contains("agreement") && lines[0].contains("p90 ms"),
         "{table}"
     );
-    assert!(lines[1].contains("teacher (teacher)"), "{table}");
     assert!(
-        lines[2].contains("student_wide") && lines[2].contains("pass"),
+        lines[1].trim_start().starts_with("ref") && lines[1].contains("teacher"),
+        "{table}"
+    );
+    assert!(
+        !lines[1].contains("teacher (teacher)"),
+        "the name says the role: {table}"
+    );
+    assert!(
+        lines[2].contains("student_wide") && lines[2].contains("pass 1/1"),
         "{table}"
     );
     assert!(table.contains("verdict: GO"), "{table}");
@@ -97,6 +104,11 @@ async fn a_failed_gate_exits_1_and_the_junit_file_has_one_testcase_per_gate() {
         .filter(|n| n.has_tag_name("testsuite"))
         .collect();
     assert_eq!(suites.len(), 1, "one testsuite per candidate");
+    assert_eq!(
+        suites[0].attribute("name"),
+        Some("student_wide"),
+        "named by the model alone, so CI histories do not churn with the rank"
+    );
     let cases: Vec<_> = suites[0]
         .children()
         .filter(|n| n.has_tag_name("testcase"))
@@ -117,7 +129,50 @@ async fn a_failed_gate_exits_1_and_the_junit_file_has_one_testcase_per_gate() {
         body.contains("threshold=0.99") && body.contains("judged="),
         "{body}"
     );
-    assert!(std::fs::read_to_string(&summary).unwrap().contains("NO-GO"));
+    let md = std::fs::read_to_string(&summary).unwrap();
+    assert!(md.contains("verdict: NO-GO"), "{md}");
+    assert!(
+        md.contains("min_agreement >= 0.99") && md.contains("max_size_ratio <= 1"),
+        "the thresholds: {md}"
+    );
+}
+
+#[tokio::test]
+async fn every_failed_gate_is_listed_with_what_was_judged() {
+    let s = Server::start(&[]);
+    let out = submit(
+        &s,
+        &[
+            "--gate",
+            "min_agreement=0.999",
+            "--gate",
+            "max_kl=0.0001",
+            "--gate",
+            "max_bytes=1e12",
+            "--gate",
+            "confidence=0.95",
+        ],
+    );
+    assert_eq!(out.status.code(), Some(1), "{}", text(&out.stderr));
+    let table = text(&out.stdout);
+    assert!(table.contains("FAIL 2 of 3"), "{table}");
+    let failed: Vec<&str> = table
+        .lines()
+        .filter(|l| l.trim_start().starts_with("student_wide:"))
+        .collect();
+    assert_eq!(
+        failed.len(),
+        2,
+        "both failures, not only the first: {table}"
+    );
+    assert!(
+        failed[0].contains("min_agreement") && failed[0].contains("Wilson lower bound at 95 %"),
+        "{table}"
+    );
+    assert!(
+        failed[1].contains("max_kl") && failed[1].contains("(estimate)"),
+        "{table}"
+    );
 }
 
 #[tokio::test]
@@ -143,6 +198,11 @@ async fn the_summary_names_the_recommended_candidate() {
     assert!(
         md.contains(&format!("recommended student_wide ({id})")),
         "{md}"
+    );
+    let evaluation = report["evaluation"].as_str().unwrap();
+    assert!(
+        md.contains(&format!("({}/evaluations/{evaluation})", s.base)),
+        "a link to the dashboard page: {md}"
     );
 }
 

@@ -929,6 +929,25 @@ def case_bad(mlp_teacher_path):
     save_npz(os.path.join(folder, "negative_labels.npz"),
              {"features": rng.standard_normal((10, 64)).astype(np.float32),
               "labels": np.array([0, 1, 2, 3, 4, 5, 6, 7, 8, -1], np.int64)})
+    # Its own generator, so that the files above stay byte for byte as they were.
+    later = np.random.default_rng(77)
+    # A head that underflows to -inf wherever a logit is not positive: Log of ReLU.
+    g = Graph()
+    z = g.op("Gemm", ["features", g.w("fc.weight", small(later, 64, 10)), g.w("fc.bias", np.zeros(10, np.float32))])
+    g.op("Log", [g.op("Relu", [z])], out="logits")
+    with open(os.path.join(folder, "neg_inf_output.onnx"), "wb") as f:
+        f.write(g.model("neg_inf_output", [("features", TensorProto.FLOAT, ["batch", 64])],
+                        [("logits", TensorProto.FLOAT, ["batch", 10])]))
+    # A model whose class count is the size of its input's second axis, so
+    # only the evaluation set says how many classes it scores.
+    g = Graph()
+    g.op("Identity", ["scores"], out="logits")
+    with open(os.path.join(folder, "passthrough.onnx"), "wb") as f:
+        f.write(g.model("passthrough", [("scores", TensorProto.FLOAT, ["batch", "classes"])],
+                        [("logits", TensorProto.FLOAT, ["batch", "classes"])]))
+    save_npz(os.path.join(folder, "scores10.npz"),
+             {"scores": later.standard_normal((12, 10)).astype(np.float32),
+              "labels": np.arange(12, dtype=np.int64) % 10})
     doc = {
         "case": "bad",
         "files": {
@@ -947,6 +966,9 @@ def case_bad(mlp_teacher_path):
             "batch_hungry.onnx": {"what": "Tile [batch, 64] x 100000, Reshape, ReduceSum -> [batch, 10]: about 25.6 MB per sample", "expect": "201 at upload; the evaluation fails under a small memory cap at batch 32"},
             "big_labels.npz": {"what": "mlp-shaped features with one label of 12", "expect": "201 at set upload; 422 when paired with 10-class models"},
             "negative_labels.npz": {"what": "mlp-shaped features with one label of -1", "expect": "422 at set upload"},
+            "neg_inf_output.onnx": {"what": "Gemm 64 -> 10, Relu, Log: -inf wherever a logit is not positive", "expect": "the evaluation fails naming the model, the sample and -inf"},
+            "passthrough.onnx": {"what": "Identity of input 'scores' [batch, classes]: C is the set's second axis", "expect": "the records cannot say C; creation loads the model to check"},
+            "scores10.npz": {"what": "'scores' float32 [12, 10] and labels 0..9", "expect": "fits passthrough.onnx with C = 10"},
         },
         "sources": {"expect": "api.md (status codes of the HTTP contract)"},
     }

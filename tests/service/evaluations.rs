@@ -169,3 +169,67 @@ async fn a_failing_gate_gives_no_go_with_the_failed_check() {
     );
     assert!(r["recommended"].is_null());
 }
+
+#[tokio::test]
+async fn the_timings_hold_every_round_and_reproduce_every_latency_figure() {
+    let s = Server::holding("bulk");
+    let (teacher, students, set) =
+        upload_case(&s, "mlp", &["student_wide.onnx", "student_narrow.onnx"]).await;
+    let a = s
+        .create_evaluation(
+            &json!({"teacher": teacher, "students": students, "dataset": set,
+                                    "latency": {"warmup": 0, "iterations": 9}}),
+        )
+        .await;
+    let id = a.body["id"].as_str().unwrap().to_string();
+    s.wait_stage(&id, "bulk", LONG).await;
+    let early = s.get(&format!("/v1/evaluations/{id}/timings")).await;
+    assert_eq!(early.status, 409, "{}", early.body);
+    s.release();
+    assert_eq!(s.wait_finished(&id, LONG).await["status"], "succeeded");
+    let t = s.get(&format!("/v1/evaluations/{id}/timings")).await.body;
+    let models: Vec<&str> = t["models"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|m| m.as_str().unwrap())
+        .collect();
+    assert_eq!(models, [teacher.as_str(), &students[0], &students[1]]);
+    let rounds: Vec<Vec<f64>> = serde_json::from_value(t["rounds"].clone()).unwrap();
+    assert_eq!(rounds.len(), 9);
+    assert!(rounds.iter().all(|r| r.len() == 3));
+    let column = |i: usize| -> Vec<f64> { rounds.iter().map(|r| r[i]).collect() };
+    let report = s.get(&format!("/v1/evaluations/{id}/report")).await.body;
+    let mut teacher_latency = report["teacher"]["latency"].clone();
+    teacher_latency
+        .as_object_mut()
+        .unwrap()
+        .remove("throughput_sps");
+    let mut want =
+        serde_json::to_value(proctor::engine::latency::summarize(&column(0), 0.0)).unwrap();
+    want.as_object_mut().unwrap().remove("throughput_sps");
+    assert_eq!(teacher_latency, want);
+    for c in report["candidates"].as_array().unwrap() {
+        let i = models
+            .iter()
+            .position(|m| *m == c["model"]["id"].as_str().unwrap())
+            .unwrap();
+        let recomputed = proctor::engine::latency::summarize_against(&column(i), &column(0), 0.0);
+        let mut got = c["latency"].clone();
+        got.as_object_mut().unwrap().remove("throughput_sps");
+        let mut want = serde_json::to_value(recomputed).unwrap();
+        want.as_object_mut().unwrap().remove("throughput_sps");
+        assert_eq!(got, want, "{}", c["model"]["name"]);
+    }
+    let stages = &report["timings"];
+    for key in ["queued_s", "loading_s", "bulk_s", "timing_s", "scoring_s"] {
+        assert!(
+            stages[key].as_f64().is_some_and(|s| s >= 0.0),
+            "{key}: {stages}"
+        );
+    }
+    assert!(
+        stages["bulk_s"].as_f64().unwrap() > 0.0,
+        "the held bulk pass took time: {stages}"
+    );
+}

@@ -12,4 +12,5 @@ mod harness;
 mod openapi;
 mod resilience;
 mod sandbox;
+mod upgrade;
 mod uploads;

@@ -157,3 +157,24 @@ async fn sigterm_puts_a_running_evaluation_back_in_the_queue_without_counting_it
         "a graceful stop gives its attempt back: {done}"
     );
 }
+
+#[tokio::test]
+async fn a_student_whose_head_underflows_to_minus_infinity_fails_naming_the_sample_and_value() {
+    let s = Server::start(&[]);
+    let teacher = s.model_id(&case_dir("mlp").join("teacher.onnx")).await;
+    let inf = s
+        .model_id(&case_dir("bad").join("neg_inf_output.onnx"))
+        .await;
+    let set = s.dataset_id(&case_dir("mlp").join("data.npz")).await;
+    let a = s
+        .create_evaluation(&json!({"teacher": teacher, "students": [inf], "dataset": set}))
+        .await;
+    let done = s.wait_finished(a.body["id"].as_str().unwrap(), LONG).await;
+    assert_eq!(done["status"], "failed", "{done}");
+    assert_eq!(done["error"]["status"], 422, "{done}");
+    let detail = done["error"]["detail"].as_str().unwrap();
+    assert!(
+        detail.contains("student 'neg_inf_output' gave -inf for sample 0"),
+        "{detail}"
+    );
+}

@@ -143,3 +143,23 @@ async fn a_model_file_lost_from_disk_fails_its_evaluation_with_a_generic_500_and
         "the cause is logged:\n{log}"
     );
 }
+
+#[tokio::test]
+async fn a_class_count_the_records_cannot_tell_is_checked_by_loading_the_models() {
+    let s = Server::start(&[]);
+    let model = s
+        .upload_model(&case_dir("bad").join("passthrough.onnx"), "passthrough")
+        .await;
+    let set = s.dataset_id(&case_dir("bad").join("scores10.npz")).await;
+    let id = model.body["id"].as_str().unwrap();
+    let body = json!({"teacher": id, "students": [id], "dataset": set,
+                      "latency": {"warmup": 0, "iterations": 3}});
+    assert_eq!(s.create_evaluation(&body).await.status, 202);
+    // Without its file the check cannot load it: our fault, not the request's.
+    let sha = model.body["sha256"].as_str().unwrap();
+    std::fs::remove_file(s.data_dir().join("models").join(sha)).unwrap();
+    let a = s.create_evaluation(&body).await;
+    assert_eq!(a.status, 500, "{}", a.body);
+    assert_eq!(a.content_type, "application/problem+json");
+    assert_eq!(a.body["detail"], proctor::error::GENERIC_DETAIL);
+}

@@ -108,6 +108,51 @@ impl GateName {
     }
 }
 
+impl GateName {
+    /// Which end of which interval the gate judges under `confidence`;
+    /// `None` for gates that always judge the estimate.
+    pub fn cautious_end(self) -> Option<&'static str> {
+        Some(match self {
+            GateName::MinAgreement | GateName::MinTop1 => "Wilson lower bound",
+            GateName::MaxNegativeFlipRate => "Wilson upper bound",
+            GateName::MaxTop1Drop => "paired Wald bound",
+            GateName::MaxP50Ms | GateName::MaxP90Ms => "order-statistic upper bound",
+            GateName::MinSpeedup => "order-statistic lower bound",
+            GateName::MinClassAgreement => "lowest Wilson lower bound over the classes",
+            GateName::MaxKl
+            | GateName::MinRetention
+            | GateName::MaxEce
+            | GateName::MaxBytes
+            | GateName::MaxSizeRatio
+            | GateName::MaxParameters => return None,
+        })
+    }
+
+    /// What the judged value of this gate is, in words: the estimate, or
+    /// the cautious end at the given confidence.
+    pub fn judged_as(self, confidence: Option<f64>) -> String {
+        match (confidence, self.cautious_end()) {
+            (Some(c), Some(end)) => format!("{end} at {}", percent(c)),
+            _ => "estimate".to_string(),
+        }
+    }
+
+    /// The comparison that passes, for messages: ">=" or "<=".
+    pub fn passes_when(self) -> &'static str {
+        if self.is_floor() { ">=" } else { "<=" }
+    }
+}
+
+/// 0.95 as "95 %".
+fn percent(c: f64) -> String {
+    let p = c * 100.0;
+    if (p - p.round()).abs() < 1e-9 {
+        format!("{} %", p.round())
+    } else {
+        format!("{p} %")
+    }
+}
+
 impl std::fmt::Display for GateName {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         f.write_str(self.as_str())
