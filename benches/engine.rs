@@ -78,6 +78,7 @@ fn bench_peak_rss() {
         project: "bench".into(),
         created_at: time::OffsetDateTime::now_utc(),
         teacher: model_ref(&cases().join("cnn/teacher.onnx")),
+        baseline: None,
         students: vec![model_ref(&cases().join("cnn/student_rank5.onnx"))],
         dataset: DatasetRef {
             id: uuid::Uuid::now_v7(),

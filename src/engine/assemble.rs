@@ -1,5 +1,6 @@
 //! Putting a report together from the figures of each stage: sizes,
-//! latency summaries, gates, ranking, Pareto flags and the verdict.
+//! latency summaries, the baseline comparison, gates, ranking, Pareto flags
+//! and the verdict.
 
 use time::OffsetDateTime;
 
@@ -7,23 +8,15 @@ use super::environment::Environment;
 use super::gates::{Evidence, judge};
 use super::job::{Job, ModelRef};
 use super::latency;
-use super::logits::OutputKind;
-use super::metrics::accuracy::{Accuracy, StudentAccuracy};
-use super::metrics::fidelity::Fidelity;
+use super::metrics::baseline::VersusLogits;
 use super::ranking::{rank, verdict};
-use super::setup::Setup;
+use super::scoring::{Figures, StudentFigures};
+use super::setup::{Prepared, Setup};
+use super::speed::{CONFIDENCE_95, paired_median};
 use crate::report::{
-    Candidate, DatasetSummary, ModelSummary, Report, ReportSettings, Size, TeacherEntry,
-    TeacherSize,
+    BaselineEntry, Candidate, DatasetSummary, FlipCounts, ModelSummary, Report, ReportSettings,
+    Size, TeacherEntry, TeacherSize, VersusBaseline,
 };
-
-/// The scoring stage's figures: the teacher's, then each student's in
-/// request order.
-pub struct Figures {
-    pub teacher_kind: OutputKind,
-    pub teacher_accuracy: Option<Accuracy>,
-    pub students: Vec<(OutputKind, Fidelity, Option<StudentAccuracy>)>,
-}
 
 fn summary(m: &ModelRef) -> ModelSummary {
     ModelSummary {
@@ -33,7 +26,49 @@ fn summary(m: &ModelRef) -> ModelSummary {
     }
 }
 
-/// `per_entry` holds the timed runs of the teacher, then of each student.
+/// A student's size against the teacher's.
+fn size(m: &ModelRef, prepared: &Prepared, teacher: &TeacherSize) -> Size {
+    let parameters = prepared.model.info.parameters;
+    Size {
+        bytes: m.bytes,
+        parameters,
+        macs: prepared.model.macs_per_sample(&prepared.binding.dims),
+        size_ratio: m.bytes as f64 / teacher.bytes as f64,
+        parameter_ratio: (teacher.parameters > 0)
+            .then(|| parameters as f64 / teacher.parameters as f64),
+    }
+}
+
+fn versus(
+    v: VersusLogits,
+    rounds: &[f64],
+    baseline_rounds: &[f64],
+    size_ratio: f64,
+) -> VersusBaseline {
+    let (speedup, speedup_ci) = paired_median(baseline_rounds, rounds, CONFIDENCE_95);
+    VersusBaseline {
+        agreement: v.agreement,
+        agreement_delta: v.agreement_delta,
+        agreement_delta_ci: v.agreement_delta_ci,
+        teacher_flip_rate: v.teacher_flip_rate,
+        top1_delta: v.top1_delta,
+        top1_delta_ci: v.top1_delta_ci,
+        mcnemar_p: v.mcnemar_p,
+        negative_flip_rate: v.negative_flip_rate,
+        speedup,
+        speedup_ci,
+        size_ratio,
+        counts: FlipCounts {
+            gained_agreement: v.gained_agreement,
+            lost_agreement: v.lost_agreement,
+            gained_top1: v.gained_top1,
+            lost_top1: v.lost_top1,
+        },
+    }
+}
+
+/// `per_entry` holds the timed runs of the teacher, the baseline if any,
+/// then each student in request order.
 pub fn assemble(
     job: &Job,
     setup: &Setup,
@@ -53,32 +88,55 @@ pub fn assemble(
             .macs_per_sample(&teacher_model.binding.dims),
     };
     let teacher_rounds = &per_entry[0];
+    let (baseline_rounds, student_rounds) = match setup.baseline {
+        Some(_) => (Some(per_entry[1].as_slice()), &per_entry[2..]),
+        None => (None, &per_entry[1..]),
+    };
     let teacher_latency = latency::summarize(teacher_rounds, throughput(setup.teacher));
+    let baseline = job
+        .baseline
+        .as_ref()
+        .zip(setup.baseline)
+        .zip(figures.baseline)
+        .zip(baseline_rounds)
+        .map(
+            |(((b, ix), f), rounds): (((&ModelRef, usize), StudentFigures), &[f64])| {
+                BaselineEntry {
+                    model: summary(b),
+                    output: setup.models[ix].output_name.clone(),
+                    output_kind: f.kind,
+                    fidelity: f.fidelity,
+                    accuracy: f.accuracy,
+                    size: size(b, &setup.models[ix], &teacher_size),
+                    latency: latency::summarize_against(rounds, teacher_rounds, throughput(ix)),
+                    slices: f.slices,
+                }
+            },
+        );
     let candidates: Vec<Candidate> = job
         .students
         .iter()
         .zip(&setup.students)
         .zip(figures.students)
-        .zip(&per_entry[1..])
-        .map(|(((student, &ix), (kind, fid, acc)), ms)| {
+        .zip(student_rounds)
+        .map(|(((student, &ix), (f, versus_logits)), ms)| {
             let m = &setup.models[ix];
-            let parameters = m.model.info.parameters;
             let mut c = Candidate {
                 rank: 0,
                 model: summary(student),
                 output: m.output_name.clone(),
-                output_kind: kind,
-                fidelity: fid,
-                accuracy: acc,
-                size: Size {
-                    bytes: student.bytes,
-                    parameters,
-                    macs: m.model.macs_per_sample(&m.binding.dims),
-                    size_ratio: student.bytes as f64 / job.teacher.bytes as f64,
-                    parameter_ratio: (teacher_size.parameters > 0)
-                        .then(|| parameters as f64 / teacher_size.parameters as f64),
-                },
+                output_kind: f.kind,
+                fidelity: f.fidelity,
+                accuracy: f.accuracy,
+                size: size(student, m, &teacher_size),
                 latency: latency::summarize_against(ms, teacher_rounds, throughput(ix)),
+                slices: f.slices,
+                versus_baseline: versus_logits
+                    .zip(baseline_rounds)
+                    .zip(job.baseline.as_ref())
+                    .map(|((v, b_rounds), b)| {
+                        versus(v, ms, b_rounds, student.bytes as f64 / b.bytes as f64)
+                    }),
                 pareto_optimal: false,
                 gates: Default::default(),
             };
@@ -86,12 +144,13 @@ pub fn assemble(
                 samples: n,
                 rounds: ms,
                 teacher_rounds,
+                baseline_rounds,
             };
             c.gates = judge(&s.gates, &c, &evidence);
             c
         })
         .collect();
-    let rounds: Vec<&[f64]> = per_entry[1..].iter().map(Vec::as_slice).collect();
+    let rounds: Vec<&[f64]> = student_rounds.iter().map(Vec::as_slice).collect();
     let candidates = rank(candidates, &rounds, s.rank_by, s.latency.tolerance);
     let (verdict, recommended) = verdict(&candidates);
     Report {
@@ -108,12 +167,14 @@ pub fn assemble(
             rank_by: s.rank_by,
             gates: s.gates.clone(),
             output: s.output.clone(),
+            baseline: job.baseline.as_ref().map(|b| b.id),
         },
         dataset: DatasetSummary {
             id: job.dataset.id,
             name: job.dataset.name.clone(),
             samples: n,
             has_labels: setup.set.labels().is_some(),
+            class_names: setup.set.class_names().map(<[String]>::to_vec),
         },
         teacher: TeacherEntry {
             model: summary(&job.teacher),
@@ -123,6 +184,7 @@ pub fn assemble(
             size: teacher_size,
             latency: teacher_latency,
         },
+        baseline,
         candidates,
         timings: Default::default(),
         verdict,

@@ -12,14 +12,26 @@ use serde::{Deserialize, Serialize};
 use super::error::{EngineError, EngineResult};
 use super::fit::LargestLabel;
 use super::npy::{self, Dtype, Header, Scalar};
+use super::slices::Slices;
+use crate::report::Key;
 
 /// The array that holds labels in an `.npz`; it never feeds a model input.
 pub const LABELS: &str = "labels";
+/// The array of class names [C]: strings, never a model input.
+pub const CLASS_NAMES: &str = "class_names";
+/// The array that assigns each sample to a slice [N]: integers or strings.
+pub const SLICES: &str = "slices";
+
+/// Most distinct slice values a set may hold.
+pub const MAX_SLICES: usize = 1000;
+
+/// Most arrays an `.npz` may hold.
+pub const MAX_ARRAYS: usize = 64;
 
 /// Whether an array of this name may feed a model input (the set's own
 /// arrays, such as the labels, never do).
 pub fn is_model_input(name: Option<&str>) -> bool {
-    name != Some(LABELS)
+    !matches!(name, Some(LABELS | CLASS_NAMES | SLICES))
 }
 
 /// One array as a report or an API answer describes it.
@@ -37,6 +49,10 @@ pub struct DatasetInfo {
     pub samples: usize,
     pub arrays: Vec<ArrayInfo>,
     pub has_labels: bool,
+    /// The names of the classes, when the set holds them.
+    pub class_names: Option<Vec<String>>,
+    /// Distinct slice values, when the set assigns samples to slices.
+    pub slice_count: Option<usize>,
     /// Recorded so that a new evaluation's labels are checked against the
     /// models' class count without reading the set again.
     pub largest_label: Option<LargestLabel>,
@@ -59,6 +75,8 @@ pub struct EvalSet {
     members: Vec<Member>,
     samples: usize,
     labels: Option<Vec<i64>>,
+    class_names: Option<Vec<String>>,
+    slices: Option<Slices>,
 }
 
 /// Rows of one array, read front to back.
@@ -98,10 +116,110 @@ impl EvalSet {
             members,
             samples: 0,
             labels: None,
+            class_names: None,
+            slices: None,
         };
+        set.check_dtypes()?;
         set.samples = set.check_lengths()?;
         set.labels = set.read_labels()?;
+        set.class_names = set.read_class_names()?;
+        set.slices = set.read_slices()?;
         Ok(set)
+    }
+
+    /// Strings only in the set's own arrays: a string model input cannot be fed.
+    fn check_dtypes(&self) -> EngineResult<()> {
+        for m in &self.members {
+            let name = m.name.as_deref();
+            if m.header.dtype.is_str() && !matches!(name, Some(CLASS_NAMES | SLICES)) {
+                return Err(invalid(format!(
+                    "array '{}' holds strings; only 'class_names' and 'slices' may",
+                    name.unwrap_or("the array")
+                )));
+            }
+        }
+        Ok(())
+    }
+
+    fn member_named(&self, name: &str) -> Option<usize> {
+        self.members
+            .iter()
+            .position(|m| m.name.as_deref() == Some(name))
+    }
+
+    /// A whole 1-D member, read at once (labels, class names, slices).
+    fn read_whole(&self, ix: usize) -> EngineResult<Vec<u8>> {
+        let mut stream = self.stream(ix)?;
+        let rows = self.members[ix].header.shape[0];
+        let mut raw = Vec::new();
+        stream.read(rows, &mut raw)?;
+        Ok(raw)
+    }
+
+    fn one_dimensional(&self, ix: usize, what: &str) -> EngineResult<()> {
+        let header = &self.members[ix].header;
+        if header.shape.len() != 1 {
+            return Err(invalid(format!(
+                "'{what}' must have one axis, but it has shape {:?}",
+                header.shape
+            )));
+        }
+        Ok(())
+    }
+
+    fn read_class_names(&self) -> EngineResult<Option<Vec<String>>> {
+        let Some(ix) = self.member_named(CLASS_NAMES) else {
+            return Ok(None);
+        };
+        let header = &self.members[ix].header;
+        if !header.dtype.is_str() {
+            return Err(invalid(format!(
+                "'class_names' must be a string array (numpy dtype '<U…'), but it is {}",
+                header.dtype.name()
+            )));
+        }
+        self.one_dimensional(ix, CLASS_NAMES)?;
+        let names = npy::strings(&self.read_whole(ix)?, header)
+            .map_err(|e| invalid(format!("'class_names': {e}")))?;
+        Ok(Some(names))
+    }
+
+    fn read_slices(&self) -> EngineResult<Option<Slices>> {
+        let Some(ix) = self.member_named(SLICES) else {
+            return Ok(None);
+        };
+        let header = &self.members[ix].header;
+        self.one_dimensional(ix, SLICES)?;
+        let raw = self.read_whole(ix)?;
+        let keys: Vec<Key> = if header.dtype.is_str() {
+            npy::strings(&raw, header)
+                .map_err(|e| invalid(format!("'slices': {e}")))?
+                .into_iter()
+                .map(Key::Text)
+                .collect()
+        } else if header.dtype.is_integer() {
+            (0..header.shape[0])
+                .map(|i| match npy::element(&raw, header, i) {
+                    Scalar::Int(v) => i64::try_from(v)
+                        .map(Key::Int)
+                        .map_err(|_| invalid(format!("slice {v} at sample {i} is too large"))),
+                    Scalar::Float(_) => unreachable!("integer dtype checked above"),
+                })
+                .collect::<EngineResult<_>>()?
+        } else {
+            return Err(invalid(format!(
+                "'slices' must hold integers or strings, but it is {}",
+                header.dtype.name()
+            )));
+        };
+        let slices = Slices::new(keys);
+        if slices.values.len() > MAX_SLICES {
+            return Err(invalid(format!(
+                "'slices' holds {} distinct values; at most {MAX_SLICES} are allowed",
+                slices.values.len()
+            )));
+        }
+        Ok(Some(slices))
     }
 
     fn check_lengths(&self) -> EngineResult<usize> {
@@ -109,7 +227,12 @@ impl EvalSet {
             return Err(invalid("the .npz archive holds no arrays"));
         }
         let mut samples = None;
-        for m in &self.members {
+        // Class names count classes, not samples.
+        for m in self
+            .members
+            .iter()
+            .filter(|m| m.name.as_deref() != Some(CLASS_NAMES))
+        {
             let label = m.name.as_deref().unwrap_or("the array");
             let Some(&n) = m.header.shape.first() else {
                 return Err(invalid(format!(
@@ -134,11 +257,7 @@ impl EvalSet {
     }
 
     fn read_labels(&self) -> EngineResult<Option<Vec<i64>>> {
-        let Some(ix) = self
-            .members
-            .iter()
-            .position(|m| m.name.as_deref() == Some(LABELS))
-        else {
+        let Some(ix) = self.member_named(LABELS) else {
             return Ok(None);
         };
         let header = &self.members[ix].header;
@@ -154,9 +273,7 @@ impl EvalSet {
                 header.shape
             )));
         }
-        let mut stream = self.stream(ix)?;
-        let mut raw = Vec::new();
-        stream.read(self.samples, &mut raw)?;
+        let raw = self.read_whole(ix)?;
         (0..self.samples)
             .map(|i| match npy::element(&raw, header, i) {
                 Scalar::Int(v) if (0..=i64::MAX as i128).contains(&v) => Ok(v as i64),
@@ -177,6 +294,14 @@ impl EvalSet {
         self.labels.as_deref()
     }
 
+    pub fn class_names(&self) -> Option<&[String]> {
+        self.class_names.as_deref()
+    }
+
+    pub fn slices(&self) -> Option<&Slices> {
+        self.slices.as_ref()
+    }
+
     pub fn info(&self) -> DatasetInfo {
         DatasetInfo {
             samples: self.samples,
@@ -191,6 +316,8 @@ impl EvalSet {
                 .collect(),
             has_labels: self.labels.is_some(),
             largest_label: self.labels.as_deref().and_then(largest_label),
+            class_names: self.class_names.clone(),
+            slice_count: self.slices.as_ref().map(|s| s.values.len()),
         }
     }
 
@@ -248,6 +375,12 @@ fn npz_members(path: &Path) -> EngineResult<Vec<Member>> {
     let file = File::open(path).map_err(EngineError::io("opening the set"))?;
     let mut zip = zip::ZipArchive::new(BufReader::new(file))
         .map_err(|e| invalid(format!("the .npz archive cannot be read: {e}")))?;
+    if zip.len() > MAX_ARRAYS {
+        return Err(invalid(format!(
+            "the .npz archive holds {} members; a set holds at most {MAX_ARRAYS} arrays",
+            zip.len()
+        )));
+    }
     let mut members = Vec::with_capacity(zip.len());
     for i in 0..zip.len() {
         let entry = zip

@@ -9,7 +9,7 @@ use std::time::{Duration, Instant};
 
 use tract_onnx::prelude::*;
 
-use super::assemble::{Figures, assemble};
+use super::assemble::assemble;
 use super::bulk::{self, BulkScores};
 use super::cache::TeacherCache;
 use super::dataset::EvalSet;
@@ -17,10 +17,8 @@ use super::error::{EngineError, EngineResult};
 use super::feed::Feed;
 use super::job::{Hooks, Job, Options, Stage};
 use super::latency::{self, Entry};
-use super::logits::{OutputKindChoice, to_logits};
-use super::metrics::accuracy::{StudentInputs, accuracy, student_accuracy};
-use super::metrics::fidelity::fidelity;
 use super::model::Model;
+use super::scoring::score;
 use super::setup::{Prepared, Setup, prepare};
 use crate::report::{Report, StageTimes};
 
@@ -30,7 +28,8 @@ pub struct Outcome {
     /// The teacher's scores came from the cache; its bulk pass did not run.
     pub teacher_from_cache: bool,
     /// Milliseconds of every timed run: one row per round, one column per
-    /// timed model (the teacher, then each student in request order).
+    /// timed model (the teacher, the baseline if any, then each student in
+    /// request order).
     pub rounds: Vec<Vec<f64>>,
     /// Wall time of each stage the engine ran.
     pub stage_times: Vec<(Stage, Duration)>,
@@ -216,49 +215,12 @@ fn run_bulk(
     Ok(out)
 }
 
-fn score(job: &Job, setup: &Setup, results: &[BulkScores], hooks: &Hooks<'_>) -> Figures {
-    let s = &job.settings;
-    let total = setup.students.len() as u64;
-    (hooks.progress)(Stage::Scoring, 0, total);
-    let convert = |ix: usize, choice: OutputKindChoice| to_logits(results[ix].raw.clone(), choice);
-    let (teacher, teacher_kind) = convert(setup.teacher, s.output_kind.teacher);
-    let labels = setup.set.labels();
-    let teacher_accuracy = labels.map(|y| accuracy(&teacher, y));
-    let students = setup
-        .students
-        .iter()
-        .enumerate()
-        .map(|(done, &ix)| {
-            let (student, kind) = convert(ix, s.output_kind.students);
-            let fid = fidelity(&teacher, &student, s.temperature);
-            let acc = labels.zip(teacher_accuracy.as_ref()).map(|(y, ta)| {
-                student_accuracy(&StudentInputs {
-                    teacher: &teacher,
-                    teacher_accuracy: ta,
-                    student: &student,
-                    labels: y,
-                    temperature: s.temperature,
-                    alpha: s.alpha,
-                    soft_cross_entropy: fid.soft_cross_entropy,
-                })
-            });
-            (hooks.progress)(Stage::Scoring, done as u64 + 1, total);
-            (kind, fid, acc)
-        })
-        .collect();
-    Figures {
-        teacher_kind,
-        teacher_accuracy,
-        students,
-    }
-}
-
 /// Samples cycled through in the timed rounds: enough to vary the input,
 /// few enough to hold in memory whatever the set's size.
 const TIMING_SAMPLES: usize = 32;
 
-/// Milliseconds per timed entry (the teacher first, then each student in
-/// request order), in round order.
+/// Milliseconds per timed entry (the teacher first, then the baseline if
+/// any, then each student in request order), in round order.
 fn measure_latency(job: &Job, setup: &Setup, hooks: &Hooks<'_>) -> EngineResult<Vec<Vec<f64>>> {
     let lat = job.settings.latency;
     let k = setup
@@ -278,6 +240,7 @@ fn measure_latency(job: &Job, setup: &Setup, hooks: &Hooks<'_>) -> EngineResult<
         })
         .collect::<EngineResult<Vec<_>>>()?;
     let order: Vec<usize> = std::iter::once(setup.teacher)
+        .chain(setup.baseline)
         .chain(setup.students.iter().copied())
         .collect();
     let entries = order

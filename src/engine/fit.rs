@@ -318,7 +318,22 @@ pub fn fit(models: &[Entrant<'_>], set: &DatasetInfo) -> EngineResult<Fit> {
     }
     let (c, _) = classes.expect("at least the teacher");
     check_labels(set.largest_label, c)?;
+    check_class_names(set.class_names.as_deref(), c)?;
     Ok(Fit::Fits { classes: c })
+}
+
+/// A set's class names must name every class the models score.
+pub fn check_class_names(names: Option<&[String]>, classes: usize) -> EngineResult<()> {
+    match names {
+        Some(names) if names.len() != classes => Err(EngineError::Settings(SettingsError {
+            field: "dataset".into(),
+            message: format!(
+                "the set's class_names has {} names, but the models score {classes} classes",
+                names.len()
+            ),
+        })),
+        _ => Ok(()),
+    }
 }
 
 /// Records the first model's class count, and refuses any other.
@@ -406,6 +421,8 @@ mod tests {
             ],
             has_labels: true,
             largest_label: largest.map(|value| LargestLabel { value, sample: 3 }),
+            class_names: None,
+            slice_count: None,
         }
     }
 

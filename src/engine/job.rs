@@ -39,6 +39,9 @@ pub struct Job {
     #[serde(with = "time::serde::rfc3339")]
     pub created_at: OffsetDateTime,
     pub teacher: ModelRef,
+    /// The student in production that every candidate is compared with.
+    #[serde(default)]
+    pub baseline: Option<ModelRef>,
     pub students: Vec<ModelRef>,
     pub dataset: DatasetRef,
     pub settings: Settings,

@@ -27,8 +27,10 @@ pub mod metrics;
 pub mod model;
 pub mod npy;
 pub mod ranking;
+pub mod scoring;
 pub mod settings;
 pub mod setup;
+pub mod slices;
 pub mod speed;
 pub mod stats;
 

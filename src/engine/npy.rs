@@ -24,6 +24,13 @@ pub enum Dtype {
     Float16,
     Float32,
     Float64,
+    /// Fixed-width strings: numpy's `U` (UTF-32, 4 bytes a character) or
+    /// `S` (bytes), `chars` wide. Only the set's own arrays (class names,
+    /// slices) may hold them.
+    Str {
+        chars: usize,
+        wide: bool,
+    },
 }
 
 const ALL_DTYPES: [Dtype; 12] = [
@@ -56,6 +63,7 @@ impl Dtype {
             Dtype::Float16 => "float16",
             Dtype::Float32 => "float32",
             Dtype::Float64 => "float64",
+            Dtype::Str { .. } => "str",
         }
     }
 
@@ -70,26 +78,35 @@ impl Dtype {
             Dtype::Int16 | Dtype::Uint16 | Dtype::Float16 => 2,
             Dtype::Int32 | Dtype::Uint32 | Dtype::Float32 => 4,
             Dtype::Int64 | Dtype::Uint64 | Dtype::Float64 => 8,
+            Dtype::Str { chars, wide: true } => 4 * chars,
+            Dtype::Str { chars, wide: false } => chars,
         }
     }
 
     pub fn is_integer(self) -> bool {
         !matches!(
             self,
-            Dtype::Bool | Dtype::Float16 | Dtype::Float32 | Dtype::Float64
+            Dtype::Bool | Dtype::Float16 | Dtype::Float32 | Dtype::Float64 | Dtype::Str { .. }
         )
+    }
+
+    pub fn is_str(self) -> bool {
+        matches!(self, Dtype::Str { .. })
     }
 
     pub fn is_float(self) -> bool {
         matches!(self, Dtype::Float16 | Dtype::Float32 | Dtype::Float64)
     }
 
-    /// Parses a numpy type string such as `<f4`, `|b1` or `>i8`.
+    /// Parses a numpy type string such as `<f4`, `|b1`, `>i8` or `<U12`.
     fn from_descr(descr: &str) -> Result<(Dtype, bool), String> {
-        let (order, code) = descr.split_at(descr.len().min(1));
+        // The first character, whatever its width: a crafted header may
+        // start with a multi-byte one.
+        let order = descr.chars().next().unwrap_or('?');
+        let code = &descr[order.len_utf8().min(descr.len())..];
         let big_endian = match order {
-            "<" | "|" | "=" => false,
-            ">" => true,
+            '<' | '|' | '=' => false,
+            '>' => true,
             _ => return Err(format!("unknown byte order in dtype '{descr}'")),
         };
         let dtype = match code {
@@ -109,11 +126,24 @@ impl Dtype {
                 return Err("object arrays are not supported: save plain numeric arrays".into());
             }
             c if c.starts_with('U') || c.starts_with('S') => {
-                return Err(format!("string arrays ('{descr}') are not supported"));
+                let chars = c[1..]
+                    .parse::<usize>()
+                    .ok()
+                    .filter(|&n| (1..=4096).contains(&n))
+                    .ok_or_else(|| format!("string dtype '{descr}' has no usable width"))?;
+                Dtype::Str {
+                    chars,
+                    wide: c.starts_with('U'),
+                }
             }
             _ => return Err(format!("dtype '{descr}' is not supported")),
         };
-        Ok((dtype, big_endian && dtype.size() > 1))
+        // Byte order matters for multi-byte numbers and UTF-32 characters.
+        let multi_byte = match dtype {
+            Dtype::Str { wide, .. } => wide,
+            d => d.size() > 1,
+        };
+        Ok((dtype, big_endian && multi_byte))
     }
 }
 
@@ -302,7 +332,41 @@ pub fn element(raw: &[u8], header: &Header, i: usize) -> Scalar {
         Dtype::Float16 => Scalar::Float(f16::from_bits(u16::from_le_bytes(le2)).to_f64()),
         Dtype::Float32 => Scalar::Float(f32::from_le_bytes(le4) as f64),
         Dtype::Float64 => Scalar::Float(f64::from_le_bytes(b)),
+        Dtype::Str { .. } => unreachable!("string arrays are decoded by `strings`"),
     }
+}
+
+/// The strings of a raw buffer of fixed-width string elements, with numpy's
+/// trailing NULs removed.
+pub fn strings(raw: &[u8], header: &Header) -> Result<Vec<String>, String> {
+    let Dtype::Str { chars, wide } = header.dtype else {
+        return Err(format!("{} is not a string dtype", header.dtype.name()));
+    };
+    let width = header.dtype.size();
+    raw.chunks_exact(width.max(1))
+        .map(|item| {
+            let text: String = if wide {
+                let mut out = String::with_capacity(chars);
+                for unit in item.chunks_exact(4) {
+                    let b = [unit[0], unit[1], unit[2], unit[3]];
+                    let code = if header.big_endian {
+                        u32::from_be_bytes(b)
+                    } else {
+                        u32::from_le_bytes(b)
+                    };
+                    out.push(
+                        char::from_u32(code)
+                            .ok_or_else(|| format!("{code:#x} is not a character"))?,
+                    );
+                }
+                out
+            } else {
+                String::from_utf8(item.to_vec())
+                    .map_err(|_| "a byte string that is not UTF-8".to_string())?
+            };
+            Ok(text.trim_end_matches('\0').to_string())
+        })
+        .collect()
 }
 
 #[cfg(test)]
@@ -360,6 +424,36 @@ mod tests {
                 }
             );
         }
+    }
+
+    #[test]
+    fn a_dtype_starting_with_a_multi_byte_character_is_refused_not_a_panic() {
+        let bytes = npy(
+            "{'descr': '\u{e9}f4', 'fortran_order': False, 'shape': (2,), }",
+            &[],
+        );
+        let err = read_header(&mut bytes.as_slice()).unwrap_err();
+        assert!(err.contains("byte order"), "{err}");
+    }
+
+    #[test]
+    fn unicode_strings_decode_without_their_padding() {
+        // numpy writes '<U5' as five little-endian UTF-32 units, NUL-padded.
+        let h = Header {
+            dtype: Dtype::Str {
+                chars: 5,
+                wide: true,
+            },
+            big_endian: false,
+            shape: vec![2],
+        };
+        let mut raw = Vec::new();
+        for word in ["ice", "géo"] {
+            let mut units: Vec<u32> = word.chars().map(|c| c as u32).collect();
+            units.resize(5, 0);
+            raw.extend(units.iter().flat_map(|u| u.to_le_bytes()));
+        }
+        assert_eq!(strings(&raw, &h).unwrap(), vec!["ice", "géo"]);
     }
 
     #[test]

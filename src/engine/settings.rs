@@ -162,9 +162,18 @@ impl Default for Settings {
     }
 }
 
+/// What an evaluation has beside its teacher and students, for the gates
+/// and rankings that need it.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Context {
+    pub labels: bool,
+    pub slices: bool,
+    pub baseline: bool,
+}
+
 impl Settings {
     /// The limits of metrics.md, and those that keep every figure defined.
-    pub fn validate(&self, has_labels: bool) -> Result<(), SettingsError> {
+    pub fn validate(&self, has: Context) -> Result<(), SettingsError> {
         if !(self.temperature.is_finite() && self.temperature > 0.0) {
             return Err(refuse(
                 "temperature",
@@ -206,22 +215,32 @@ impl Settings {
                 "confidence must lie strictly between 0 and 1",
             ));
         }
-        if !has_labels {
-            if let Some(g) = self.gates.needing(Needs::Labels) {
-                return Err(refuse(
-                    &format!("gates.{}", g.as_str()),
-                    format!(
-                        "gate '{}' needs labels, and the evaluation set has none",
-                        g.as_str()
-                    ),
-                ));
+        let unmet = |n: Needs| -> Option<&'static str> {
+            if n.baseline() && !has.baseline {
+                Some("a baseline, and the evaluation names none")
+            } else if n.labels() && !has.labels {
+                Some("labels, and the evaluation set has none")
+            } else if n == Needs::Slices && !has.slices {
+                Some("a slices array, and the evaluation set has none")
+            } else {
+                None
             }
-            if self.rank_by == RankBy::Top1 {
-                return Err(refuse(
-                    "rank_by",
-                    "rank_by 'top1' needs labels, and the evaluation set has none",
-                ));
-            }
+        };
+        if let Some(g) = self.gates.first_unmet(|n| unmet(n).is_none()) {
+            return Err(refuse(
+                &format!("gates.{}", g.as_str()),
+                format!(
+                    "gate '{}' needs {}",
+                    g.as_str(),
+                    unmet(g.needs()).unwrap_or_default()
+                ),
+            ));
+        }
+        if !has.labels && self.rank_by == RankBy::Top1 {
+            return Err(refuse(
+                "rank_by",
+                "rank_by 'top1' needs labels, and the evaluation set has none",
+            ));
         }
         Ok(())
     }
@@ -243,13 +262,43 @@ mod tests {
                 gates: gates(json!({"confidence": c})),
                 ..Settings::default()
             };
-            assert_eq!(s.validate(true).unwrap_err().field, "gates.confidence");
+            assert_eq!(s.validate(ALL).unwrap_err().field, "gates.confidence");
         }
         let s = Settings {
             gates: gates(json!({"confidence": 0.9})),
             ..Settings::default()
         };
-        assert!(s.validate(true).is_ok());
+        assert!(s.validate(ALL).is_ok());
+    }
+
+    const ALL: Context = Context {
+        labels: true,
+        slices: true,
+        baseline: true,
+    };
+
+    #[test]
+    fn gates_that_need_a_baseline_or_slices_are_refused_without_them() {
+        let s = Settings {
+            gates: gates(json!({"min_baseline_top1_delta": -0.01, "min_slice_agreement": 0.8})),
+            ..Settings::default()
+        };
+        let no_baseline = Context {
+            baseline: false,
+            ..ALL
+        };
+        let err = s.validate(no_baseline).unwrap_err();
+        assert_eq!(err.field, "gates.min_baseline_top1_delta");
+        assert!(err.message.contains("baseline"), "{}", err.message);
+        let no_slices = Context {
+            slices: false,
+            ..ALL
+        };
+        assert_eq!(
+            s.validate(no_slices).unwrap_err().field,
+            "gates.min_slice_agreement"
+        );
+        assert!(s.validate(ALL).is_ok());
     }
 
     #[test]
@@ -258,25 +307,29 @@ mod tests {
             gates: gates(json!({"min_top1": 0.8})),
             ..Settings::default()
         };
-        assert_eq!(s.validate(false).unwrap_err().field, "gates.min_top1");
-        assert!(s.validate(true).is_ok());
+        let unlabelled = Context {
+            labels: false,
+            ..ALL
+        };
+        assert_eq!(s.validate(unlabelled).unwrap_err().field, "gates.min_top1");
+        assert!(s.validate(ALL).is_ok());
     }
 
     #[test]
     fn limits_of_metrics_md_are_enforced() {
         let mut s = Settings::default();
         s.latency.iterations = 0;
-        assert_eq!(s.validate(true).unwrap_err().field, "latency.iterations");
+        assert_eq!(s.validate(ALL).unwrap_err().field, "latency.iterations");
         let s = Settings {
             batch_size: 4097,
             ..Settings::default()
         };
-        assert_eq!(s.validate(true).unwrap_err().field, "batch_size");
+        assert_eq!(s.validate(ALL).unwrap_err().field, "batch_size");
         let s = Settings {
             temperature: 0.0,
             ..Settings::default()
         };
-        assert_eq!(s.validate(true).unwrap_err().field, "temperature");
+        assert_eq!(s.validate(ALL).unwrap_err().field, "temperature");
     }
 
     #[test]

@@ -10,12 +10,14 @@ use super::error::{EngineError, EngineResult};
 use super::fit::{Binding, agree, bind};
 use super::job::{Job, ModelRef};
 use super::model::{BatchAxis, Model, Plan};
+use super::settings::Context;
 
 /// A model made ready for one evaluation: bound to the set, with its plans
 /// built once per batch size and reused.
 #[derive(Debug)]
 pub struct Prepared {
-    /// "teacher" or "student", for messages; a model listed as both is the teacher.
+    /// "teacher", "baseline" or "student", for messages; a model listed
+    /// twice takes its first role.
     pub role: &'static str,
     pub label: String,
     pub model: Model,
@@ -76,6 +78,7 @@ pub struct Setup {
     pub set: EvalSet,
     pub models: Vec<Prepared>,
     pub teacher: usize,
+    pub baseline: Option<usize>,
     pub students: Vec<usize>,
 }
 
@@ -93,7 +96,11 @@ fn labelled(name: &str, e: EngineError) -> EngineError {
 /// count for all, labels inside it.
 pub fn prepare(job: &Job) -> EngineResult<Setup> {
     let set = EvalSet::open(&job.dataset.path)?;
-    job.settings.validate(set.labels().is_some())?;
+    job.settings.validate(Context {
+        labels: set.labels().is_some(),
+        slices: set.slices().is_some(),
+        baseline: job.baseline.is_some(),
+    })?;
     let mut by_sha: HashMap<(String, Option<String>), usize> = HashMap::new();
     let mut models: Vec<Prepared> = Vec::new();
     let mut index = |m: &ModelRef, role, models: &mut Vec<Prepared>| -> EngineResult<usize> {
@@ -114,6 +121,11 @@ pub fn prepare(job: &Job) -> EngineResult<Setup> {
         Ok(models.len() - 1)
     };
     let teacher = index(&job.teacher, "teacher", &mut models)?;
+    let baseline = job
+        .baseline
+        .as_ref()
+        .map(|b| index(b, "baseline", &mut models))
+        .transpose()?;
     let students = job
         .students
         .iter()
@@ -121,14 +133,20 @@ pub fn prepare(job: &Job) -> EngineResult<Setup> {
         .collect::<EngineResult<Vec<_>>>()?;
     let mut classes = None;
     agree(&mut classes, models[teacher].classes, &job.teacher.name)?;
+    if let (Some(ix), Some(b)) = (baseline, &job.baseline) {
+        agree(&mut classes, models[ix].classes, &b.name)?;
+    }
     for (&ix, s) in students.iter().zip(&job.students) {
         agree(&mut classes, models[ix].classes, &s.name)?;
     }
-    super::fit::check_labels(set.info().largest_label, models[teacher].classes)?;
+    let info = set.info();
+    super::fit::check_labels(info.largest_label, models[teacher].classes)?;
+    super::fit::check_class_names(info.class_names.as_deref(), models[teacher].classes)?;
     Ok(Setup {
         set,
         models,
         teacher,
+        baseline,
         students,
     })
 }

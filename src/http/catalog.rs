@@ -21,8 +21,11 @@ fn declared_length(headers: &HeaderMap) -> Option<u64> {
 }
 
 fn upload_name(q: &QueryMap) -> Result<String, AppError> {
-    q.text("name")
-        .ok_or_else(|| AppError::bad_request("give the upload a name: ?name=NAME", Some("name")))
+    let name = q
+        .text("name")
+        .ok_or_else(|| AppError::bad_request("give the upload a name: ?name=NAME", Some("name")))?;
+    crate::service::limits::name(&name)?;
+    Ok(name)
 }
 
 /// 201 with a Location for a new record, 200 for a file already stored.

@@ -7,13 +7,14 @@ pub(crate) use evaluations::list_query;
 pub mod errors;
 pub(crate) mod extract;
 mod health;
+mod projects;
 
 use std::time::Duration;
 
 use axum::Router;
 use axum::http::{HeaderName, Request, StatusCode, header};
 use axum::response::IntoResponse;
-use axum::routing::{MethodRouter, delete, get, post};
+use axum::routing::{MethodRouter, delete, get, post, put};
 use tower::ServiceBuilder;
 use tower_http::compression::CompressionLayer;
 use tower_http::request_id::{MakeRequestUuid, PropagateRequestIdLayer, SetRequestIdLayer};
@@ -93,6 +94,14 @@ fn table() -> Vec<(&'static str, &'static str, Kind, MethodRouter<App>)> {
             "/v1/evaluations/{id}/timings",
             Bounded,
             get(evaluations::timings),
+        ),
+        ("get", "/v1/projects", Bounded, get(projects::list)),
+        ("get", "/v1/projects/{name}", Bounded, get(projects::get)),
+        (
+            "put",
+            "/v1/projects/{name}/baseline",
+            Bounded,
+            put(projects::set_baseline),
         ),
         ("get", "/healthz", Bounded, get(health::healthz)),
         ("get", "/readyz", Bounded, get(health::readyz)),

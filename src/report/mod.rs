@@ -17,6 +17,7 @@ use crate::engine::gates::Gates;
 use crate::engine::logits::OutputKind;
 use crate::engine::metrics::accuracy::{Accuracy, StudentAccuracy};
 use crate::engine::metrics::fidelity::Fidelity;
+use crate::engine::metrics::slices::SliceFigures;
 use crate::engine::settings::{LatencySettings, OutputChoice, RankBy};
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -31,6 +32,8 @@ pub struct Report {
     pub settings: ReportSettings,
     pub dataset: DatasetSummary,
     pub teacher: TeacherEntry,
+    /// The student in production, when the evaluation names one.
+    pub baseline: Option<BaselineEntry>,
     pub candidates: Vec<Candidate>,
     /// Where the evaluation's wall time went.
     pub timings: StageTimes,
@@ -68,6 +71,8 @@ pub struct ReportSettings {
     pub rank_by: RankBy,
     pub gates: Gates,
     pub output: Option<OutputChoice>,
+    /// The baseline model's id, as resolved when the evaluation was created.
+    pub baseline: Option<Uuid>,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -76,6 +81,7 @@ pub struct DatasetSummary {
     pub name: String,
     pub samples: u64,
     pub has_labels: bool,
+    pub class_names: Option<Vec<String>>,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -146,8 +152,56 @@ pub struct Candidate {
     pub accuracy: Option<StudentAccuracy>,
     pub size: Size,
     pub latency: StudentLatency,
+    /// Figures per slice, when the set has slices.
+    pub slices: Option<Vec<SliceFigures>>,
+    /// Against the baseline, when the evaluation names one.
+    pub versus_baseline: Option<VersusBaseline>,
     pub pareto_optimal: bool,
     pub gates: GateOutcome,
+}
+
+/// The baseline in a report: a candidate's fields without rank, gates or
+/// Pareto flag; its ratios and speedup are against the teacher.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct BaselineEntry {
+    pub model: ModelSummary,
+    pub output: String,
+    pub output_kind: OutputKind,
+    pub fidelity: Fidelity,
+    pub accuracy: Option<StudentAccuracy>,
+    pub size: Size,
+    pub latency: StudentLatency,
+    pub slices: Option<Vec<SliceFigures>>,
+}
+
+/// A candidate against the baseline (metrics.md, "Baseline").
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct VersusBaseline {
+    /// How often the candidate and the baseline decide alike.
+    pub agreement: f64,
+    pub agreement_delta: f64,
+    pub agreement_delta_ci: [f64; 2],
+    pub teacher_flip_rate: f64,
+    pub top1_delta: Option<f64>,
+    pub top1_delta_ci: Option<[f64; 2]>,
+    pub mcnemar_p: Option<f64>,
+    pub negative_flip_rate: Option<f64>,
+    /// Median over rounds of baseline_ms / candidate_ms.
+    pub speedup: f64,
+    pub speedup_ci: [f64; 2],
+    pub size_ratio: f64,
+    /// The paired counts behind the intervals, for gates.
+    #[serde(skip)]
+    pub counts: FlipCounts,
+}
+
+/// b and c of the paired comparisons with the baseline.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub struct FlipCounts {
+    pub gained_agreement: u64,
+    pub lost_agreement: u64,
+    pub gained_top1: u64,
+    pub lost_top1: u64,
 }
 
 /// A class index or a slice value: an integer or a string.

@@ -9,11 +9,12 @@ use serde::{Deserialize, Serialize};
 use time::OffsetDateTime;
 use uuid::Uuid;
 
-use super::App;
-use crate::engine::dataset::DatasetInfo;
+use super::{App, limits};
 use crate::engine::fit::{Entrant, Fit, fit};
 use crate::engine::gates::Gates;
-use crate::engine::settings::{LatencySettings, OutputChoice, OutputKinds, RankBy, Settings};
+use crate::engine::settings::{
+    Context, LatencySettings, OutputChoice, OutputKinds, RankBy, Settings,
+};
 use crate::engine::{EngineError, Job};
 use crate::error::AppError;
 use crate::report::RoundTimings;
@@ -55,6 +56,42 @@ pub struct EvaluationRequest {
     pub gates: Gates,
     #[serde(default)]
     pub tags: BTreeMap<String, String>,
+    /// The student in production to compare every candidate with.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub baseline: Option<BaselineChoice>,
+}
+
+/// `baseline` in a request: a model id, or "current", the project's
+/// baseline at the time of creation.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum BaselineChoice {
+    Current,
+    Model(Uuid),
+}
+
+impl Serialize for BaselineChoice {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        match self {
+            BaselineChoice::Current => s.serialize_str("current"),
+            BaselineChoice::Model(id) => id.serialize(s),
+        }
+    }
+}
+
+impl<'de> Deserialize<'de> for BaselineChoice {
+    fn deserialize<D: serde::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+        let text = String::deserialize(d)?;
+        if text == "current" {
+            return Ok(BaselineChoice::Current);
+        }
+        Uuid::parse_str(&text)
+            .map(BaselineChoice::Model)
+            .map_err(|_| {
+                serde::de::Error::custom(format!(
+                    "baseline must be a model id or \"current\", not {text:?}"
+                ))
+            })
+    }
 }
 
 impl EvaluationRequest {
@@ -74,6 +111,7 @@ impl EvaluationRequest {
             rank_by: RankBy::default(),
             gates: Gates::default(),
             tags: BTreeMap::new(),
+            baseline: None,
         }
     }
 }
@@ -116,18 +154,9 @@ impl App {
         &self,
         req: EvaluationRequest,
     ) -> Result<EvaluationRecord, AppError> {
-        if req.project.trim().is_empty() {
-            return Err(AppError::unprocessable(
-                "project must not be empty",
-                Some("project"),
-            ));
-        }
-        if req.students.is_empty() {
-            return Err(AppError::unprocessable(
-                "give at least one student",
-                Some("students"),
-            ));
-        }
+        limits::project(&req.project)?;
+        limits::students(&req.students)?;
+        limits::tags(&req.tags)?;
         let settings = req.settings();
         let teacher = self.named_model(req.teacher, "teacher").await?;
         let mut students = Vec::with_capacity(req.students.len());
@@ -140,8 +169,13 @@ impl App {
                 Some("dataset"),
             )
         })?;
+        let baseline = self.resolve_baseline(&req).await?;
         settings
-            .validate(dataset.has_labels)
+            .validate(Context {
+                labels: dataset.has_labels,
+                slices: dataset.slice_count.is_some(),
+                baseline: baseline.is_some(),
+            })
             .map_err(|e| AppError::unprocessable(e.message, Some(&e.field)))?;
         let new = NewEvaluation {
             id: Uuid::now_v7(),
@@ -151,14 +185,48 @@ impl App {
                 teacher: teacher.id,
                 students: req.students,
                 dataset: dataset.id,
+                baseline: baseline.as_ref().map(|b| b.id),
                 settings,
                 tags: req.tags,
             },
         };
-        self.check_fit(&new, &teacher, &students, &dataset).await?;
+        self.check_fit(&new, &teacher, baseline.as_ref(), &students, &dataset)
+            .await?;
         let record = self.store.create_evaluation(&new).await?;
         self.workers.wake();
         Ok(record)
+    }
+
+    /// The request's baseline as a stored model: "current" is the project's
+    /// baseline now; the baseline may not also be a student.
+    async fn resolve_baseline(
+        &self,
+        req: &EvaluationRequest,
+    ) -> Result<Option<ModelRecord>, AppError> {
+        let id = match req.baseline {
+            None => return Ok(None),
+            Some(BaselineChoice::Model(id)) => id,
+            Some(BaselineChoice::Current) => {
+                let current = self.store.current_baseline(&req.project).await?;
+                current.map(|b| b.model.id).ok_or_else(|| {
+                    AppError::unprocessable(
+                        format!(
+                            "project '{}' has no baseline yet: set one with PUT \
+                             /v1/projects/{}/baseline, or name a model id",
+                            req.project, req.project
+                        ),
+                        Some("baseline"),
+                    )
+                })?
+            }
+        };
+        if req.students.contains(&id) {
+            return Err(AppError::unprocessable(
+                format!("model {id} is the baseline and cannot also be a student"),
+                Some("baseline"),
+            ));
+        }
+        self.named_model(id, "baseline").await.map(Some)
     }
 
     async fn named_model(&self, id: Uuid, field: &str) -> Result<ModelRecord, AppError> {
@@ -176,11 +244,13 @@ impl App {
         &self,
         new: &NewEvaluation,
         teacher: &ModelRecord,
+        baseline: Option<&ModelRecord>,
         students: &[ModelRecord],
         dataset: &DatasetRecord,
     ) -> Result<(), AppError> {
         let output = new.request.settings.output.as_ref();
         let models: Vec<Entrant<'_>> = std::iter::once(teacher)
+            .chain(baseline)
             .chain(students)
             .map(|m| Entrant {
                 name: &m.name,
@@ -188,13 +258,7 @@ impl App {
                 output: output.and_then(|o| o.for_model(m.id)),
             })
             .collect();
-        let info = DatasetInfo {
-            samples: dataset.samples as usize,
-            arrays: dataset.arrays.clone(),
-            has_labels: dataset.has_labels,
-            largest_label: dataset.largest_label,
-        };
-        let why = match fit(&models, &info).map_err(refused)? {
+        let why = match fit(&models, &dataset.info()).map_err(refused)? {
             Fit::Fits { .. } if !dataset.has_labels || dataset.largest_label.is_some() => {
                 return Ok(());
             }

@@ -3,10 +3,13 @@
 
 mod dashboard;
 mod evaluations;
+pub mod limits;
+mod projects;
 mod uploads;
 
 pub use dashboard::{EvaluationView, ListView, ReportView, TeacherView};
-pub use evaluations::{EvaluationRequest, ListQuery};
+pub use evaluations::{BaselineChoice, EvaluationRequest, ListQuery};
+pub use projects::SetBaseline;
 pub use uploads::{Upload, Uploaded};
 
 use crate::queue::Workers;

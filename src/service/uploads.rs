@@ -172,6 +172,8 @@ impl Upload for DatasetRecord {
             samples: info.samples as u64,
             arrays: info.arrays,
             has_labels: info.has_labels,
+            class_names: info.class_names,
+            slice_count: info.slice_count.map(|n| n as u64),
             largest_label: info.largest_label,
             created_at: OffsetDateTime::now_utc(),
         }

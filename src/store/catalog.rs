@@ -81,8 +81,8 @@ impl Store {
     ) -> Result<(DatasetRecord, bool), StoreError> {
         let inserted = sqlx::query(
             "INSERT INTO datasets (id, name, sha256, bytes, samples, has_labels, arrays, \
-             largest_label, created_at) VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9) \
-             ON CONFLICT (sha256) DO NOTHING",
+             largest_label, class_names, slice_count, created_at) \
+             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11) ON CONFLICT (sha256) DO NOTHING",
         )
         .bind(d.id)
         .bind(&d.name)
@@ -92,6 +92,8 @@ impl Store {
         .bind(d.has_labels)
         .bind(Json(&d.arrays))
         .bind(d.largest_label.map(Json))
+        .bind(d.class_names.as_ref().map(Json))
+        .bind(d.slice_count.map(|n| n as i64))
         .bind(d.created_at)
         .execute(&self.pool)
         .await?

@@ -31,6 +31,10 @@ impl Store {
             })
         };
         let teacher = model(request.teacher).await?;
+        let baseline = match request.baseline {
+            Some(b) => Some(model(b).await?),
+            None => None,
+        };
         let mut students = Vec::with_capacity(request.students.len());
         for &sid in &request.students {
             students.push(model(sid).await?);
@@ -44,6 +48,7 @@ impl Store {
             project: request.project.clone(),
             created_at,
             teacher,
+            baseline,
             students,
             dataset: DatasetRef {
                 path: self.blobs.path_of(BlobKind::Dataset, &d.sha256),

@@ -27,7 +27,8 @@ macro_rules! model_columns {
 
 macro_rules! dataset_columns {
     () => {
-        "id, name, sha256, bytes, samples, has_labels, arrays, largest_label, created_at"
+        "id, name, sha256, bytes, samples, has_labels, arrays, largest_label, class_names, \
+         slice_count, created_at"
     };
 }
 
@@ -45,6 +46,7 @@ mod dashboard;
 mod error;
 mod evaluations;
 mod jobs;
+mod projects;
 mod records;
 mod rows;
 
@@ -60,6 +62,7 @@ use uuid::Uuid;
 pub use blobs::{BlobKind, Blobs, Incoming, Received};
 pub use dashboard::{EvaluationRow, TrendPoint};
 pub use error::StoreError;
+pub use projects::{BaselineRecord, NewBaseline, Project, ProjectSummary};
 pub use records::{
     AppliedRequest, CancelOutcome, DatasetRecord, EvaluationFilter, EvaluationRecord, ModelRecord,
     NewEvaluation, Page, Progress, Status,

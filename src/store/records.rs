@@ -8,7 +8,7 @@ use time::OffsetDateTime;
 use uuid::Uuid;
 
 use crate::engine::Stage;
-use crate::engine::dataset::ArrayInfo;
+use crate::engine::dataset::{ArrayInfo, DatasetInfo};
 use crate::engine::fit::LargestLabel;
 use crate::engine::model::ModelInfo;
 use crate::engine::settings::Settings;
@@ -36,12 +36,29 @@ pub struct DatasetRecord {
     pub samples: u64,
     pub arrays: Vec<ArrayInfo>,
     pub has_labels: bool,
+    pub class_names: Option<Vec<String>>,
+    /// Distinct values of the set's `slices` array, if it has one.
+    pub slice_count: Option<u64>,
     /// Kept for checks, not served; `None` for sets without labels and for
     /// sets uploaded before it was recorded.
     #[serde(skip)]
     pub largest_label: Option<LargestLabel>,
     #[serde(with = "time::serde::rfc3339")]
     pub created_at: OffsetDateTime,
+}
+
+impl DatasetRecord {
+    /// What the upload learned, as the engine's checks read it.
+    pub fn info(&self) -> DatasetInfo {
+        DatasetInfo {
+            samples: self.samples as usize,
+            arrays: self.arrays.clone(),
+            has_labels: self.has_labels,
+            largest_label: self.largest_label,
+            class_names: self.class_names.clone(),
+            slice_count: self.slice_count.map(|n| n as usize),
+        }
+    }
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, sqlx::Type)]
@@ -97,6 +114,10 @@ pub struct AppliedRequest {
     pub teacher: Uuid,
     pub students: Vec<Uuid>,
     pub dataset: Uuid,
+    /// The baseline's model id, resolved at creation ("current" is stored
+    /// as the id it named then).
+    #[serde(default)]
+    pub baseline: Option<Uuid>,
     #[serde(flatten)]
     pub settings: Settings,
     pub tags: BTreeMap<String, String>,

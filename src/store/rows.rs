@@ -51,6 +51,8 @@ pub(super) struct DatasetRow {
     has_labels: bool,
     arrays: Json<Vec<ArrayInfo>>,
     largest_label: Option<Json<LargestLabel>>,
+    class_names: Option<Json<Vec<String>>>,
+    slice_count: Option<i64>,
     created_at: OffsetDateTime,
 }
 
@@ -64,6 +66,8 @@ impl From<DatasetRow> for DatasetRecord {
             samples: r.samples as u64,
             arrays: r.arrays.0,
             has_labels: r.has_labels,
+            class_names: r.class_names.map(|c| c.0),
+            slice_count: r.slice_count.map(|n| n as u64),
             largest_label: r.largest_label.map(|l| l.0),
             created_at: r.created_at,
         }

@@ -44,6 +44,7 @@ fn job(case: &str, students: &[&str], settings: Settings) -> Job {
         project: "reference".into(),
         created_at: time::OffsetDateTime::now_utc(),
         teacher: model_ref(case, "teacher.onnx"),
+        baseline: None,
         students: students.iter().map(|s| model_ref(case, s)).collect(),
         dataset: dataset_ref(&case_dir(case).join("data.npz")),
         settings,

@@ -7,6 +7,7 @@
 mod support;
 
 mod bad_inputs;
+mod baseline;
 mod evaluation;
 mod reference;
 mod timing;

@@ -568,7 +568,7 @@ class Case:
         assert len(keep) == n, f"{self.name}: only {len(keep)} robust samples"
         return {k: v[keep] for k, v in feeds.items()}, int(bad.sum())
 
-    def write(self, data, labels, data_names=None):
+    def write(self, data, labels, data_names=None, extra_arrays=None):
         folder = os.path.join(CASES, self.name)
         os.makedirs(os.path.join(folder, "ort"))
         outs = self.outputs(data)
@@ -582,6 +582,8 @@ class Case:
         arrays = dict(data) if data_names is None else {data_names[k_]: v for k_, v in data.items()}
         if labels is not None:
             arrays["labels"] = labels.astype(np.int64)
+        # arrays that are no model input (class_names, slices), stored after the labels
+        arrays.update(extra_arrays or {})
         save_npz(os.path.join(folder, "data.npz"), arrays)
         models = {}
         for stem, (mb, macs) in self.models.items():
@@ -838,6 +840,309 @@ def case_ties(seed=5, n=240):
 
 
 # --------------------------------------------------------------------------
+# Baseline, class names and slices (docs/metrics.md version 2)
+
+# Sources of the figures that only the "baseline" case holds.  Kept apart from
+# SOURCES so that the expected.json of the other cases stays as it was.
+BASELINE_SOURCES = {
+    "baseline": "the stem of the model that plays the student in production (metrics.md, 'Baseline')",
+    "baseline_figures": "the baseline against the teacher, computed exactly as a student's fidelity and accuracy "
+                        "(same functions and sources as students.*)",
+    "class_names": "invented names of a fictional scenario, as stored in data.npz (numpy '<U' array)",
+    "versus_baseline.agreement": "numpy.argmax, numpy.mean of [argmax z_s == argmax z_b], cross-checked by the trace "
+                                 "of the baseline-by-candidate confusion matrix; agreement between two students as "
+                                 "common practice",
+    "versus_baseline.agreement_delta": "numpy: fidelity.agreement of the candidate minus that of the baseline, as floats; "
+                                       "cross-checked against (b_agree - c_agree) / N",
+    "versus_baseline.agreement_delta_ci": "numpy, paired Wald interval of metrics.md on b_agree, c_agree, "
+                                          "z = scipy.stats.norm.ppf(0.975) (Agresti, Categorical Data Analysis, "
+                                          "section 10.1); cross-checked as mean +- z * sqrt(var / N) of the per-sample "
+                                          "differences in {-1, 0, 1}",
+    "versus_baseline.teacher_flip_rate": "numpy: c_agree / N (flips as in Yan et al. 2021, 'Positive-Congruent "
+                                         "Training', read against the teacher)",
+    "versus_baseline.top1_delta": "numpy: accuracy.top1 of the candidate minus that of the baseline, as floats; "
+                                  "cross-checked against (b_top1 - c_top1) / N",
+    "versus_baseline.top1_delta_ci": "numpy, paired Wald interval of metrics.md on b_top1, c_top1, "
+                                     "z = scipy.stats.norm.ppf(0.975) (Agresti, Categorical Data Analysis, section 10.1)",
+    "versus_baseline.mcnemar_p": "scipy.stats.binomtest(min(b_top1, c_top1), b_top1 + c_top1, 0.5, "
+                                 "alternative='two-sided').pvalue, 1.0 when b_top1 + c_top1 = 0, cross-checked by "
+                                 "exact rational arithmetic (McNemar 1947; exact form as in Dietterich 1998)",
+    "versus_baseline.negative_flip_rate": "numpy: c_top1 / N, baseline right and candidate wrong (Yan et al. 2021, "
+                                          "'Positive-Congruent Training')",
+    "versus_baseline.size_ratio": "os.path.getsize(candidate) / os.path.getsize(baseline)",
+    "versus_baseline.b_agree, c_agree": "numpy: b = baseline disagrees with the teacher and candidate agrees, "
+                                        "c = the reverse",
+    "versus_baseline.b_top1, c_top1": "numpy: b = baseline wrong and candidate right, c = the reverse",
+    "slices": "one entry per distinct value, ascending: integers numerically, strings by code point (Python sorted(), "
+              "cross-checked with numpy.unique and with a sort on the code point tuples); per-slice figures as "
+              "common practice",
+    "slices[].agreement, top1": "numpy.argmax, numpy.mean over the slice's samples",
+    "slices[].agreement_ci, top1_ci": "statsmodels.stats.proportion.proportion_confint(count, nobs, alpha=0.05, "
+                                      "method='wilson') over the slice's samples (Wilson 1927), cross-checked with "
+                                      "the closed form",
+    "slices[].negative_flip_rate": "numpy: samples of the slice the teacher gets right and the model wrong, divided "
+                                   "by the slice's samples (Yan et al. 2021, 'Positive-Congruent Training')",
+    "sets": "the same models over the case's other evaluation sets (same features, other arrays); label fields null "
+            "without labels; 'expect' from api.md and metrics.md ('Class names')",
+}
+
+Z95 = float(scipy.stats.norm.ppf(0.975))
+assert Z95 == 1.959963984540054  # the constant metrics.md writes out
+
+
+def paired_wald(b, c, n, new_ok, old_ok):
+    """(b - c) / N and its paired Wald 95 % interval (Agresti, section 10.1).
+
+    new_ok / old_ok are the per-sample booleans the counts come from; the
+    interval is cross-checked as the normal interval of the mean of their
+    differences, whose variance (divisor N) is the same quantity."""
+    assert b == int(np.sum(new_ok & ~old_ok)) and c == int(np.sum(~new_ok & old_ok))
+    d = (b - c) / n
+    se = math.sqrt((b + c) - (b - c) ** 2 / n) / n
+    diff = new_ok.astype(np.float64) - old_ok.astype(np.float64)
+    close(d, float(diff.mean()), rel=1e-12, absolute=1e-15)
+    close(se, math.sqrt(max(0.0, float(np.mean(diff ** 2) - diff.mean() ** 2)) / n), rel=1e-9, absolute=1e-15)
+    return d, [d - Z95 * se, d + Z95 * se]
+
+
+def versus_baseline(zt, zs, zb, y, bytes_s, bytes_b, fid_s, fid_b, acc_s, acc_b):
+    """metrics.md 'Baseline' for one candidate, less speedup (that comes from timing)."""
+    n, classes = zt.shape
+    at, as_, ab = argmax(zt), argmax(zs), argmax(zb)
+    agreement = float(np.mean(as_ == ab))
+    confusion = np.zeros((classes, classes), np.int64)
+    np.add.at(confusion, (ab, as_), 1)
+    close(agreement, float(np.trace(confusion)) / n, rel=1e-12)
+    # "right" read as "agrees with the teacher"
+    s_ok, b_ok = as_ == at, ab == at
+    b_agree, c_agree = int(np.sum(s_ok & ~b_ok)), int(np.sum(~s_ok & b_ok))
+    d, ci = paired_wald(b_agree, c_agree, n, s_ok, b_ok)
+    out = {
+        "agreement": agreement,
+        "agreement_delta": fid_s["agreement"] - fid_b["agreement"],
+        "agreement_delta_ci": ci,
+        "teacher_flip_rate": c_agree / n,
+        "top1_delta": None,
+        "top1_delta_ci": None,
+        "mcnemar_p": None,
+        "negative_flip_rate": None,
+        "size_ratio": bytes_s / bytes_b,
+        "b_agree": b_agree,
+        "c_agree": c_agree,
+        "b_top1": None,
+        "c_top1": None,
+    }
+    close(out["agreement_delta"], d, rel=1e-9, absolute=1e-15)
+    if y is not None:
+        s_ok, b_ok = as_ == y, ab == y
+        b_top1, c_top1 = int(np.sum(s_ok & ~b_ok)), int(np.sum(~s_ok & b_ok))
+        d, ci = paired_wald(b_top1, c_top1, n, s_ok, b_ok)
+        out.update({
+            "top1_delta": acc_s["top1"] - acc_b["top1"],
+            "top1_delta_ci": ci,
+            "mcnemar_p": mcnemar(b_top1, c_top1),
+            "negative_flip_rate": c_top1 / n,
+            "b_top1": b_top1,
+            "c_top1": c_top1,
+        })
+        close(out["top1_delta"], d, rel=1e-9, absolute=1e-15)
+    return out
+
+
+def slice_order(values):
+    """Distinct slice values, ascending: integers numerically, strings by code point."""
+    keys = sorted(set(values.tolist()))
+    assert keys == np.unique(values).tolist()
+    if values.dtype.kind == "U":
+        assert keys == sorted(keys, key=lambda v: tuple(ord(ch) for ch in v))
+    else:
+        assert values.dtype.kind == "i"
+        assert keys == sorted(keys, key=int)
+    return keys
+
+
+def slice_figures(values, zt, zm, y):
+    """metrics.md 'Slices' for one model (a candidate or the baseline)."""
+    at, am = argmax(zt), argmax(zm)
+    out = []
+    for key in slice_order(values):
+        sel = values == key
+        n = int(sel.sum())
+        agree = am[sel] == at[sel]
+        entry = {"slice": key, "samples": n, "agreement": float(agree.mean()),
+                 "agreement_ci": wilson(int(agree.sum()), n),
+                 "top1": None, "top1_ci": None, "negative_flip_rate": None}
+        if y is not None:
+            t_ok, m_ok = at[sel] == y[sel], am[sel] == y[sel]
+            entry.update({"top1": float(m_ok.mean()), "top1_ci": wilson(int(m_ok.sum()), n),
+                          "negative_flip_rate": int(np.sum(t_ok & ~m_ok)) / n})
+        out.append(entry)
+    # cross-check: the slices partition the set, and their sample-weighted
+    # agreement (and top1) is the whole set's
+    assert sum(e["samples"] for e in out) == len(values)
+    close(sum(e["agreement"] * e["samples"] for e in out) / len(values), float(np.mean(am == at)), rel=1e-12)
+    if y is not None:
+        close(sum(e["top1"] * e["samples"] for e in out) / len(values), float(np.mean(am == y)), rel=1e-12)
+    return out
+
+
+# A fictional scenario: a camera line that grades seed kernels at five
+# cooperative sorting sites.  Every name is invented.
+KERNEL_GRADES = ["sound", "cracked", "mouldy", "shrivelled", "discoloured", "foreign matter"]
+# Code point order is B, F, O, k, É: a case-blind sort would put "kestrel reach"
+# before "Oriel Flats", and a locale sort would put "Élanmoor" second.
+SORTING_SITES = ["Brannoch Mill", "Fennick Hollow", "Oriel Flats", "kestrel reach", "Élanmoor"]
+SINGLE_SITE = "Oriel Flats"     # the slice that holds exactly one sample
+INT_SLICES = [3, 10, -2, 7]     # numeric order -2, 3, 7, 10; string order "-2", "10", "3", "7"
+
+
+def case_baseline(seed=31, n=300):
+    name, in_dim, hidden, classes = "baseline", 24, 64, len(KERNEL_GRADES)
+    rng = np.random.default_rng(seed)
+    t_layers = [(he(rng, in_dim, hidden), small(rng, hidden) + np.float32(2.0))]
+    train = {"features": rng.standard_normal((3000, in_dim)).astype(np.float32)}
+    t_feats = np.maximum(run(mlp_model(t_layers, "body", in_dim, out_name="hidden"), train), 0)
+    t_layers.append(balanced_head(t_feats, he(rng, hidden, classes), small(rng, classes)))
+    case = Case(name)
+    teacher = mlp_model(t_layers, "teacher", in_dim)
+    case.add("teacher", teacher, gemm_macs(t_layers), teacher=True)
+    zt_train = run(teacher, train)
+    directions = linear_directions(train["features"], zt_train)
+
+    def student(width, agree_max):
+        # as in mlp_pair_case: hidden units read the directions of the teacher's logits, head fitted
+        w0 = (directions @ rng.standard_normal((classes, width)) / math.sqrt(classes)).astype(np.float32)
+        b0 = small(rng, width) + np.float32(0.5)
+        feats = np.maximum(run(mlp_model([(w0, b0)], "body", in_dim, out_name="hidden"), train), 0)
+        return [(w0, b0), fit_head(feats, zt_train, rng, agree_max)]
+
+    # the student in production, and the candidates that may replace it
+    production = student(12, 0.85)
+    case.add("production", mlp_model(production, "production", in_dim), gemm_macs(production))
+    for stem, width, agree_max in (("candidate_wide", 32, 0.92), ("candidate_lean", 6, 0.8)):
+        layers = student(width, agree_max)
+        case.add(stem, mlp_model(layers, stem, in_dim), gemm_macs(layers))
+    # the production weights again under another graph name: same logits, other bytes and SHA-256
+    case.add("twin", mlp_model(production, "twin", in_dim), gemm_macs(production))
+
+    data, dropped = case.select({"features": rng.standard_normal((n + 60, in_dim)).astype(np.float32)}, n)
+    labels = make_labels(rng, run(teacher, data), classes)
+    class_names = np.array(KERNEL_GRADES)
+    # four sites drawn with unequal shares, and one sample moved to a fifth site of its own:
+    # a sample that the lean candidate gets wrong against the teacher while production and
+    # the wide candidate agree, so that the lean one's lowest slice is the single-sample one
+    # (agreement 0) and the slice gate's `at` must name it
+    others = [site for site in SORTING_SITES if site != SINGLE_SITE]
+    sites = np.array(others)[rng.choice(len(others), size=n, p=[0.4, 0.3, 0.2, 0.1])]
+    top = {stem: argmax(to_logits(o, auto_kind(o))) for stem, o in case.outputs(data).items()}
+    pick = np.flatnonzero((top["candidate_lean"] != top["teacher"]) & (top["candidate_wide"] == top["teacher"])
+                          & (top["production"] == top["teacher"]))
+    sites[pick[rng.integers(len(pick))]] = SINGLE_SITE
+    int_slices = np.array(INT_SLICES, np.int64)[rng.choice(len(INT_SLICES), size=n, p=[0.35, 0.3, 0.2, 0.15])]
+    assert class_names.dtype.kind == "U" and sites.dtype.kind == "U"
+    assert int(np.sum(sites == SINGLE_SITE)) == 1 and len(np.unique(sites)) == len(SORTING_SITES)
+    assert len(np.unique(int_slices)) == len(INT_SLICES)
+
+    doc, outs, zs = case.write(data, labels, extra_arrays={"class_names": class_names, "slices": sites})
+    folder = os.path.join(CASES, name)
+    features = data["features"]
+    # the case's other sets: the same samples with other arrays beside them
+    other_sets = {
+        "data_int_slices.npz": {"features": features, "labels": labels, "slices": int_slices},
+        "unlabelled.npz": {"features": features, "slices": sites},
+        # one name too many: C + 1 names for C classes
+        "bad_class_names.npz": {"features": features, "labels": labels,
+                                "class_names": np.array(KERNEL_GRADES + ["husk"])},
+    }
+    for file, arrays in other_sets.items():
+        save_npz(os.path.join(folder, file), arrays)
+    # the baseline's identity: same logits as production, other file
+    assert np.array_equal(outs["twin"], outs["production"])
+    assert doc["models"]["twin"]["sha256"] != doc["models"]["production"]["sha256"]
+
+    zt = zs["teacher"]
+    base = doc["students"].pop("production")
+    candidates = doc["students"]
+    bytes_b = doc["models"]["production"]["bytes"]
+    for stem, s in candidates.items():
+        s["versus_baseline"] = versus_baseline(zt, zs[stem], zs["production"], labels,
+                                               doc["models"][stem]["bytes"], bytes_b,
+                                               s["fidelity"], base["fidelity"], s["accuracy"], base["accuracy"])
+        s["slices"] = slice_figures(sites, zt, zs[stem], labels)
+    baseline_slices = slice_figures(sites, zt, zs["production"], labels)
+
+    twin = candidates["twin"]
+    v = twin["versus_baseline"]
+    assert v["agreement"] == 1.0 and v["agreement_delta"] == 0.0 and v["agreement_delta_ci"] == [0.0, 0.0]
+    assert v["teacher_flip_rate"] == 0.0 and v["top1_delta"] == 0.0 and v["top1_delta_ci"] == [0.0, 0.0]
+    assert v["mcnemar_p"] == 1.0 and v["negative_flip_rate"] == 0.0
+    assert twin["fidelity"] == base["fidelity"] and twin["accuracy"] == base["accuracy"]
+    assert twin["slices"] == baseline_slices
+    # the fixture must tell the candidates apart from the baseline in both directions
+    assert candidates["candidate_wide"]["versus_baseline"]["agreement_delta"] > 0
+    assert candidates["candidate_lean"]["versus_baseline"]["agreement_delta"] < 0
+    for stem in ("candidate_wide", "candidate_lean"):
+        v = candidates[stem]["versus_baseline"]
+        assert min(v["b_agree"], v["c_agree"], v["b_top1"], v["c_top1"]) > 0, stem
+
+    stems = [*candidates, "production"]
+
+    def arrays_of(file):
+        return [{"name": a, "dtype": str(v.dtype), "shape": list(v.shape)} for a, v in other_sets[file].items()]
+
+    sets = {
+        "data_int_slices.npz": {
+            "data_arrays": arrays_of("data_int_slices.npz"),
+            "has_labels": True,
+            "slices": {stem: slice_figures(int_slices, zt, zs[stem], labels) for stem in stems},
+        },
+        "unlabelled.npz": {
+            "data_arrays": arrays_of("unlabelled.npz"),
+            "has_labels": False,
+            "slices": {stem: slice_figures(sites, zt, zs[stem], None) for stem in stems},
+            "versus_baseline": {stem: versus_baseline(zt, zs[stem], zs["production"], None,
+                                                      doc["models"][stem]["bytes"], bytes_b,
+                                                      candidates[stem]["fidelity"], base["fidelity"], None, None)
+                                for stem in candidates},
+        },
+        "bad_class_names.npz": {
+            "data_arrays": arrays_of("bad_class_names.npz"),
+            "has_labels": True,
+            "expect": "422 with field dataset when the evaluation is created",
+        },
+    }
+    ints = [e["slice"] for e in sets["data_int_slices.npz"]["slices"]["production"]]
+    assert ints == sorted(INT_SLICES) and ints != sorted(INT_SLICES, key=str)
+    assert all(type(i) is int for i in ints)
+    names = [e["slice"] for e in baseline_slices]
+    assert names != sorted(names, key=str.casefold)
+    lean = candidates["candidate_lean"]["slices"]
+    assert min(lean, key=lambda e: e["agreement"]) == next(e for e in lean if e["slice"] == SINGLE_SITE)
+    assert next(e for e in lean if e["slice"] == SINGLE_SITE)["agreement"] == 0.0
+    # without labels the agreement figures are those of the labelled set
+    for stem in candidates:
+        u = sets["unlabelled.npz"]["versus_baseline"][stem]
+        for key in ("agreement", "agreement_delta", "agreement_delta_ci", "teacher_flip_rate", "size_ratio"):
+            assert u[key] == candidates[stem]["versus_baseline"][key]
+
+    full = {}
+    for key, value in doc.items():
+        if key == "students":
+            full["baseline"] = "production"
+            full["baseline_figures"] = base
+            full["baseline_slices"] = baseline_slices
+            full["class_names"] = class_names.tolist()
+        full[key] = value
+        if key == "students":
+            full["sets"] = sets
+    full["sources"] = dict(SOURCES, **BASELINE_SOURCES)
+    with open(os.path.join(folder, "expected.json"), "w") as f:
+        json.dump(full, f, indent=1, allow_nan=False)
+        f.write("\n")
+    return full, dropped
+
+
+# --------------------------------------------------------------------------
 # unusable inputs
 
 def case_bad(mlp_teacher_path):
@@ -948,6 +1253,43 @@ def case_bad(mlp_teacher_path):
     save_npz(os.path.join(folder, "scores10.npz"),
              {"scores": later.standard_normal((12, 10)).astype(np.float32),
               "labels": np.arange(12, dtype=np.int64) % 10})
+    # Version 2's class names and slices.  Again a generator of their own, so
+    # that every file above stays byte for byte as it was.
+    v2 = np.random.default_rng(78)
+    # class_names as an object array, which numpy can only store pickled.
+    # save_npz reads every file back with allow_pickle=False, so this one is
+    # written by hand: numpy's own format writer with allow_pickle=True, in a
+    # zip laid out as save_npz lays it out (fixed timestamps, zip64 entries).
+    pickled = {"features": v2.standard_normal((10, 64)).astype(np.float32),
+               "labels": np.arange(10, dtype=np.int64),
+               "class_names": np.array([f"grade {i}" for i in range(10)], dtype=object)}
+    pickled_path = os.path.join(folder, "pickled_class_names.npz")
+    with zipfile.ZipFile(pickled_path, "w", compression=zipfile.ZIP_DEFLATED) as dst:
+        for key, arr in pickled.items():
+            buf = io.BytesIO()
+            np.lib.format.write_array(buf, arr, allow_pickle=True)
+            entry = zipfile.ZipInfo(key + ".npy", date_time=(1980, 1, 1, 0, 0, 0))
+            entry.compress_type = zipfile.ZIP_DEFLATED
+            entry.external_attr = 0o644 << 16
+            with dst.open(entry, "w", force_zip64=True) as f:
+                f.write(buf.getvalue())
+    with np.load(pickled_path) as back:  # a reader that refuses pickles must refuse it
+        assert back["features"].dtype == np.float32
+        try:
+            back["class_names"]
+        except ValueError:
+            pass
+        else:
+            raise AssertionError("class_names loads without allow_pickle")
+    with np.load(pickled_path, allow_pickle=True) as back:
+        assert back["class_names"].dtype == object and list(back["class_names"]) == list(pickled["class_names"])
+    # 1001 samples, each its own slice: one distinct value past the limit of 1000.
+    # Features in steps of 1/4 so that the file stays small.
+    many = 1001
+    save_npz(os.path.join(folder, "many_slices.npz"),
+             {"features": (np.round(v2.standard_normal((many, 64)) * 4) / 4).astype(np.float32),
+              "labels": np.arange(many, dtype=np.int64) % 10,
+              "slices": np.arange(many, dtype=np.int64)})
     doc = {
         "case": "bad",
         "files": {
@@ -969,8 +1311,17 @@ def case_bad(mlp_teacher_path):
             "neg_inf_output.onnx": {"what": "Gemm 64 -> 10, Relu, Log: -inf wherever a logit is not positive", "expect": "the evaluation fails naming the model, the sample and -inf"},
             "passthrough.onnx": {"what": "Identity of input 'scores' [batch, classes]: C is the set's second axis", "expect": "the records cannot say C; creation loads the model to check"},
             "scores10.npz": {"what": "'scores' float32 [12, 10] and labels 0..9", "expect": "fits passthrough.onnx with C = 10"},
+            "pickled_class_names.npz": {"what": "mlp-shaped 'features' float32 [10, 64], 'labels' int64 0..9, and "
+                                                "'class_names' an object array of 10 strings, stored pickled "
+                                                "(numpy.lib.format.write_array with allow_pickle=True)",
+                                        "expect": "422 at set upload: class_names must be a numpy string array, "
+                                                  "never pickled objects; nothing is unpickled"},
+            "many_slices.npz": {"what": f"mlp-shaped 'features' float32 [{many}, 64], 'labels' int64 0..9, and "
+                                        f"'slices' int64 0..{many - 1}: {many} distinct values",
+                                "expect": "422 at set upload: at most 1000 distinct slice values"},
         },
-        "sources": {"expect": "api.md (status codes of the HTTP contract)"},
+        "sources": {"expect": "api.md (status codes of the HTTP contract); metrics.md, 'Class names' and "
+                              "'Slices' (version 2) for pickled_class_names.npz and many_slices.npz"},
     }
     with open(os.path.join(folder, "expected.json"), "w") as f:
         json.dump(doc, f, indent=1)
@@ -1121,6 +1472,10 @@ def main():
     check_band(udoc)
     assert udoc["teacher_accuracy"] is None
     summary["unlabeled"] = (udoc, dropped)
+
+    ldoc, dropped = case_baseline()
+    check_band(ldoc, skip=("twin",))
+    summary["baseline"] = (ldoc, dropped)
 
     case_bad(os.path.join(CASES, "mlp", "teacher.onnx"))
     case_timing()

@@ -44,7 +44,7 @@ pub fn expected(case: &str) -> Value {
 }
 
 /// The labelled cases with a teacher and students.
-pub const CASES: [&str; 9] = [
+pub const CASES: [&str; 10] = [
     "mlp",
     "cnn",
     "text",
@@ -54,6 +54,7 @@ pub const CASES: [&str; 9] = [
     "wide",
     "fixed_batch",
     "unlabeled",
+    "baseline",
 ];
 
 /// Compares every field of `got` with `want`: numbers within `tol`, all else

@@ -14,6 +14,8 @@ pub struct Evidence<'a> {
     pub rounds: &'a [f64],
     /// The teacher's timed runs, in the same rounds.
     pub teacher_rounds: &'a [f64],
+    /// The baseline's timed runs, in the same rounds, when there is one.
+    pub baseline_rounds: Option<&'a [f64]>,
 }
 
 /// The estimate and the value judged; `at` names the class or slice judged.
@@ -52,6 +54,29 @@ pub(super) fn figure(
         c.accuracy
             .as_ref()
             .ok_or_else(|| format!("{gate} needs labels"))
+    };
+    let versus = || {
+        c.versus_baseline
+            .as_ref()
+            .ok_or_else(|| format!("{gate} needs a baseline"))
+    };
+    let labelled_versus = || {
+        let v = versus()?;
+        v.top1_delta
+            .is_some()
+            .then_some(v)
+            .ok_or_else(|| format!("{gate} needs labels"))
+    };
+    // The lowest of several proportions (classes, slices), or under
+    // `confidence` the lowest Wilson lower bound; the estimate is that one's.
+    let lowest = |items: &mut dyn Iterator<Item = (Key, f64, u64, u64)>| {
+        items
+            .map(|(at, estimate, agreed, samples)| Figure {
+                judged: z.map_or(estimate, |z| wilson(agreed, samples, z)[0]),
+                estimate,
+                at: Some(at),
+            })
+            .min_by(|a, b| a.judged.total_cmp(&b.judged))
     };
     Ok(match gate {
         GateName::MinAgreement => cautious(
@@ -92,23 +117,62 @@ pub(super) fn figure(
         GateName::MaxBytes => plain(c.size.bytes as f64),
         GateName::MaxSizeRatio => plain(c.size.size_ratio),
         GateName::MaxParameters => plain(c.size.parameters as f64),
-        GateName::MinClassAgreement => {
-            // The class with the lowest agreement, or under `confidence` the
-            // lowest Wilson lower bound; the estimate is that class's.
-            let judged_of = |k: &crate::engine::metrics::fidelity::ClassAgreement| {
-                z.map_or(k.agreement, |z| wilson(k.agreed, k.samples, z)[0])
-            };
-            let lowest = c
+        GateName::MinClassAgreement => lowest(
+            &mut c
                 .fidelity
                 .class_agreement
                 .iter()
-                .min_by(|a, b| judged_of(a).total_cmp(&judged_of(b)))
-                .ok_or("the teacher predicts no class")?;
-            Figure {
-                estimate: lowest.agreement,
-                judged: judged_of(lowest),
-                at: Some(Key::Int(lowest.class as i64)),
-            }
+                .map(|k| (Key::Int(k.class as i64), k.agreement, k.agreed, k.samples)),
+        )
+        .ok_or("the teacher predicts no class")?,
+        GateName::MinSliceAgreement => lowest(
+            &mut c
+                .slices
+                .as_ref()
+                .ok_or_else(|| format!("{gate} needs a slices array"))?
+                .iter()
+                .map(|s| (s.slice.clone(), s.agreement, s.agreed, s.samples)),
+        )
+        .ok_or("the set has no slices")?,
+        GateName::MinBaselineAgreementDelta => {
+            let v = versus()?;
+            let k = v.counts;
+            cautious(
+                v.agreement_delta,
+                z.map(|z| paired_wald(k.gained_agreement, k.lost_agreement, n, z)[0]),
+            )
+        }
+        GateName::MaxBaselineTeacherFlipRate => {
+            let v = versus()?;
+            cautious(
+                v.teacher_flip_rate,
+                z.map(|z| wilson(v.counts.lost_agreement, n, z)[1]),
+            )
+        }
+        GateName::MinBaselineTop1Delta => {
+            let v = labelled_versus()?;
+            let k = v.counts;
+            cautious(
+                v.top1_delta.expect("labelled"),
+                z.map(|z| paired_wald(k.gained_top1, k.lost_top1, n, z)[0]),
+            )
+        }
+        GateName::MaxBaselineNegativeFlipRate => {
+            let v = labelled_versus()?;
+            cautious(
+                v.negative_flip_rate.expect("labelled"),
+                z.map(|z| wilson(v.counts.lost_top1, n, z)[1]),
+            )
+        }
+        GateName::MinBaselineSpeedup => {
+            let v = versus()?;
+            let base = ev
+                .baseline_rounds
+                .ok_or_else(|| format!("{gate} needs a baseline"))?;
+            cautious(
+                v.speedup,
+                confidence.map(|conf| paired_median(base, ev.rounds, conf).1[0]),
+            )
         }
     })
 }

@@ -10,6 +10,20 @@ use serde::{Deserialize, Serialize};
 pub enum Needs {
     Nothing,
     Labels,
+    /// A `slices` array in the set.
+    Slices,
+    Baseline,
+    BaselineAndLabels,
+}
+
+impl Needs {
+    pub fn labels(self) -> bool {
+        matches!(self, Needs::Labels | Needs::BaselineAndLabels)
+    }
+
+    pub fn baseline(self) -> bool {
+        matches!(self, Needs::Baseline | Needs::BaselineAndLabels)
+    }
 }
 
 macro_rules! gate_table {
@@ -86,6 +100,12 @@ gate_table! {
     MaxSizeRatio => max_size_ratio, Nothing;
     MaxParameters => max_parameters, Nothing;
     MinClassAgreement => min_class_agreement, Nothing;
+    MinSliceAgreement => min_slice_agreement, Slices;
+    MinBaselineAgreementDelta => min_baseline_agreement_delta, Baseline;
+    MaxBaselineTeacherFlipRate => max_baseline_teacher_flip_rate, Baseline;
+    MinBaselineTop1Delta => min_baseline_top1_delta, BaselineAndLabels;
+    MaxBaselineNegativeFlipRate => max_baseline_negative_flip_rate, BaselineAndLabels;
+    MinBaselineSpeedup => min_baseline_speedup, Baseline;
 }
 
 impl GateName {
@@ -119,6 +139,14 @@ impl GateName {
             GateName::MaxP50Ms | GateName::MaxP90Ms => "order-statistic upper bound",
             GateName::MinSpeedup => "order-statistic lower bound",
             GateName::MinClassAgreement => "lowest Wilson lower bound over the classes",
+            GateName::MinSliceAgreement => "lowest Wilson lower bound over the slices",
+            GateName::MinBaselineAgreementDelta | GateName::MinBaselineTop1Delta => {
+                "paired Wald lower bound"
+            }
+            GateName::MaxBaselineTeacherFlipRate | GateName::MaxBaselineNegativeFlipRate => {
+                "Wilson upper bound"
+            }
+            GateName::MinBaselineSpeedup => "order-statistic lower bound",
             GateName::MaxKl
             | GateName::MinRetention
             | GateName::MaxEce
@@ -160,12 +188,12 @@ impl std::fmt::Display for GateName {
 }
 
 impl Gates {
-    /// The first gate given that needs labels, if any.
-    pub fn needing(&self, needs: Needs) -> Option<GateName> {
+    /// The first gate given whose needs `met` does not meet, if any.
+    pub fn first_unmet(&self, met: impl Fn(Needs) -> bool) -> Option<GateName> {
         self.thresholds()
             .into_iter()
             .map(|(g, _)| g)
-            .find(|g| g.needs() == needs)
+            .find(|g| !met(g.needs()))
     }
 
     pub fn is_empty(&self) -> bool {

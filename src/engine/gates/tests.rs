@@ -6,9 +6,10 @@ use serde_json::{Value, json};
 use super::*;
 use crate::engine::metrics::accuracy::{Accuracy, StudentAccuracy};
 use crate::engine::metrics::fidelity::{ClassAgreement, Fidelity};
+use crate::engine::metrics::slices::SliceFigures;
 use crate::engine::speed::paired_median;
 use crate::engine::stats::{Z95, paired_wald, quantile_interval, wilson};
-use crate::report::{Latency, ModelSummary, Size, StudentLatency};
+use crate::report::{FlipCounts, Key, Latency, ModelSummary, Size, StudentLatency, VersusBaseline};
 
 /// Timed runs 0.02, 0.04, ... 2.00 ms in some order: t(k) = k / 50.
 pub(crate) fn own_rounds() -> Vec<f64> {
@@ -20,6 +21,24 @@ pub(crate) fn own_rounds() -> Vec<f64> {
 /// The teacher's runs, exactly three times as long in every round.
 pub(crate) fn teacher_rounds() -> Vec<f64> {
     own_rounds().iter().map(|x| 3.0 * x).collect()
+}
+
+/// The baseline's runs, one and a half times as long in every round.
+pub(crate) fn baseline_rounds() -> Vec<f64> {
+    own_rounds().iter().map(|x| 1.5 * x).collect()
+}
+
+fn slice(name: &str, samples: u64, agreed: u64) -> SliceFigures {
+    SliceFigures {
+        slice: Key::Text(name.into()),
+        samples,
+        agreement: agreed as f64 / samples as f64,
+        agreement_ci: [0.0, 1.0],
+        top1: None,
+        top1_ci: None,
+        negative_flip_rate: None,
+        agreed,
+    }
 }
 
 fn class(class: usize, samples: u64, agreed: u64) -> ClassAgreement {
@@ -98,17 +117,40 @@ pub(crate) fn candidate() -> Candidate {
             speedup: 3.0,
             speedup_ci: [3.0, 3.0],
         },
+        slices: Some(vec![slice("harbour", 50, 42), slice("north", 50, 48)]),
+        // Against the baseline: 5 samples gained agreement with the teacher,
+        // 3 lost; 4 gained the label, 3 lost it.
+        versus_baseline: Some(VersusBaseline {
+            agreement: 0.93,
+            agreement_delta: 0.02,
+            agreement_delta_ci: [-0.1, 0.1],
+            teacher_flip_rate: 0.03,
+            top1_delta: Some(0.01),
+            top1_delta_ci: Some([-0.1, 0.1]),
+            mcnemar_p: Some(1.0),
+            negative_flip_rate: Some(0.03),
+            speedup: 1.5,
+            speedup_ci: [1.5, 1.5],
+            size_ratio: 0.8,
+            counts: FlipCounts {
+                gained_agreement: 5,
+                lost_agreement: 3,
+                gained_top1: 4,
+                lost_top1: 3,
+            },
+        }),
         pareto_optimal: true,
         gates: GateOutcome::default(),
     }
 }
 
 fn judged_with(gates: Value) -> GateOutcome {
-    let (own, teacher) = (own_rounds(), teacher_rounds());
+    let (own, teacher, base) = (own_rounds(), teacher_rounds(), baseline_rounds());
     let evidence = Evidence {
         samples: 100,
         rounds: &own,
         teacher_rounds: &teacher,
+        baseline_rounds: Some(&base),
     };
     judge(
         &serde_json::from_value(gates).unwrap(),
@@ -148,6 +190,12 @@ fn expected(gate: GateName, cautious: bool) -> f64 {
         GateName::MaxSizeRatio => 0.25,
         GateName::MaxParameters => 500.0,
         GateName::MinClassAgreement => 33.0 / 40.0,
+        GateName::MinSliceAgreement => 42.0 / 50.0,
+        GateName::MinBaselineAgreementDelta => 0.02,
+        GateName::MaxBaselineTeacherFlipRate => 0.03,
+        GateName::MinBaselineTop1Delta => 0.01,
+        GateName::MaxBaselineNegativeFlipRate => 0.03,
+        GateName::MinBaselineSpeedup => 1.5,
     };
     if !cautious {
         return est;
@@ -161,6 +209,12 @@ fn expected(gate: GateName, cautious: bool) -> f64 {
         GateName::MaxP90Ms => quantile_interval(&own_rounds(), 0.9, 0.95)[1],
         GateName::MinSpeedup => paired_median(&teacher_rounds(), &own_rounds(), 0.95).1[0],
         GateName::MinClassAgreement => wilson(57, 60, Z95)[0].min(wilson(33, 40, Z95)[0]),
+        GateName::MinSliceAgreement => wilson(48, 50, Z95)[0].min(wilson(42, 50, Z95)[0]),
+        GateName::MinBaselineAgreementDelta => paired_wald(5, 3, 100, Z95)[0],
+        GateName::MaxBaselineTeacherFlipRate => wilson(3, 100, Z95)[1],
+        GateName::MinBaselineTop1Delta => paired_wald(4, 3, 100, Z95)[0],
+        GateName::MaxBaselineNegativeFlipRate => wilson(3, 100, Z95)[1],
+        GateName::MinBaselineSpeedup => paired_median(&baseline_rounds(), &own_rounds(), 0.95).1[0],
         _ => est,
     }
 }
@@ -216,9 +270,11 @@ fn the_class_gate_names_the_class_it_judged() {
     // Without confidence the lowest agreement is class 1's (0.825); the
     // Wilson lower bound of 33/40 is lower than that of 57/60 as well.
     let plain = single(GateName::MinClassAgreement, 0.5, None);
-    assert_eq!(plain.at, Some(crate::report::Key::Int(1)));
+    assert_eq!(plain.at, Some(Key::Int(1)));
     let at_95 = single(GateName::MinClassAgreement, 0.5, Some(0.95));
-    assert_eq!(at_95.at, Some(crate::report::Key::Int(1)));
+    assert_eq!(at_95.at, Some(Key::Int(1)));
+    let worst = single(GateName::MinSliceAgreement, 0.5, Some(0.95));
+    assert_eq!(worst.at, Some(Key::Text("harbour".into())));
     assert_eq!(single(GateName::MaxKl, 1.0, None).at, None);
 }
 
@@ -232,6 +288,7 @@ fn an_undefined_retention_fails_its_gate_saying_why() {
         samples: 100,
         rounds: &own,
         teacher_rounds: &teacher,
+        baseline_rounds: None,
     };
     let out = judge(&gates, &c, &evidence);
     assert!(!out.passed);

@@ -3,7 +3,9 @@
 //! model with the labels. Both are pure functions of their inputs.
 
 pub mod accuracy;
+pub mod baseline;
 pub mod fidelity;
+pub mod slices;
 
 /// Top-k size used by `topk` and `topk_agreement`: min(5, C).
 pub fn top_k(c: usize) -> usize {
