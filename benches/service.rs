@@ -103,6 +103,7 @@ async fn main() {
                 teacher,
                 students: vec![teacher],
                 dataset: set,
+                baseline: None,
                 settings: proctor::engine::settings::Settings::default(),
                 tags: Default::default(),
             },
