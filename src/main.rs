@@ -1,6 +1,7 @@
 //! The `proctor` binary: parses arguments and starts the chosen command.
 
 use clap::{Parser, Subcommand};
+use proctor::cli::exit;
 use tracing_subscriber::EnvFilter;
 
 #[derive(Parser)]
@@ -20,6 +21,8 @@ enum Command {
     Serve(proctor::config::ServeArgs),
     /// Submit a teacher, students and an evaluation set; exit with the verdict.
     Submit(Box<proctor::cli::submit::SubmitArgs>),
+    /// Make a candidate that passed every gate its project's baseline.
+    Adopt(proctor::cli::adopt::AdoptArgs),
     /// Run the bundled turbine-acoustics demo on a local service.
     Demo(proctor::cli::demo::DemoArgs),
     /// Run one engine task read from stdin (started by the service).
@@ -44,14 +47,12 @@ fn main() -> anyhow::Result<()> {
     match cli.command {
         Command::Serve(args) => runtime()?.block_on(proctor::server::serve(args)),
         Command::Submit(args) => {
-            let code = match runtime()?.block_on(proctor::cli::submit::run(&args)) {
-                Ok(code) => code,
-                Err(e) => {
-                    eprintln!("proctor submit: {}", e.message);
-                    e.code
-                }
-            };
-            std::process::exit(code)
+            let outcome = runtime()?.block_on(proctor::cli::submit::run(&args));
+            std::process::exit(exit::code("submit", outcome))
+        }
+        Command::Adopt(args) => {
+            let outcome = runtime()?.block_on(proctor::cli::adopt::run(&args));
+            std::process::exit(exit::code("adopt", outcome))
         }
         Command::Demo(args) => {
             std::process::exit(runtime()?.block_on(proctor::cli::demo::run(&args))?)

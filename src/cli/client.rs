@@ -13,8 +13,8 @@ use uuid::Uuid;
 
 use crate::problem::Problem;
 use crate::report::Report;
-use crate::service::EvaluationRequest;
-use crate::store::{DatasetRecord, EvaluationRecord, ModelRecord, Page};
+use crate::service::{EvaluationRequest, SetBaseline};
+use crate::store::{DatasetRecord, EvaluationRecord, ModelRecord, Page, Project};
 
 /// What went wrong, sorted by who can fix it (it decides the exit code).
 #[derive(Debug, thiserror::Error)]
@@ -186,6 +186,22 @@ impl Client {
     pub async fn evaluation(&self, id: Uuid) -> Result<EvaluationRecord, ClientError> {
         let text = self.get_text(&format!("/v1/evaluations/{id}")).await?;
         parsed(&text, "evaluation")
+    }
+
+    /// Makes a model its project's baseline.
+    pub async fn set_baseline(
+        &self,
+        project: &str,
+        body: &SetBaseline,
+    ) -> Result<Project, ClientError> {
+        let res = self
+            .http
+            .put(self.url(&format!("/v1/projects/{project}/baseline")))
+            .json(body)
+            .send()
+            .await
+            .map_err(network)?;
+        parsed(&checked(res).await?, "project")
     }
 
     /// The report as the server sent it (for `--json`), and read.

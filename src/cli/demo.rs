@@ -95,6 +95,7 @@ pub async fn run(args: &DemoArgs) -> anyhow::Result<i32> {
         alpha: Some(0.9),
         rank_by: None,
         project: Some("turbine-acoustics".into()),
+        baseline: None,
         tags: vec!["source=demo".into()],
         no_wait: false,
         json: None,

@@ -2,9 +2,9 @@
 //! Markdown) with the teacher as the reference row, every failed gate in
 //! words, figures rounded for reading.
 
-use crate::engine::gates::GateCheck;
+use crate::engine::gates::{GateCheck, GateName};
 use crate::report::numbers::{interval, significant};
-use crate::report::{Candidate, Report, Verdict};
+use crate::report::{Candidate, Key, Report, Verdict};
 
 const HEADERS: [&str; 10] = [
     "rank",
@@ -46,12 +46,23 @@ pub fn gate_text(c: &Candidate) -> String {
     }
 }
 
+/// A class as people name it: its index, and its name when the set has one.
+pub fn class_label(class: usize, names: Option<&[String]>) -> String {
+    match names.and_then(|n| n.get(class)) {
+        Some(name) => format!("{class} ({name})"),
+        None => class.to_string(),
+    }
+}
+
 /// One failed check in full: the value judged, what it is, the threshold.
-pub fn failure_text(k: &GateCheck, confidence: Option<f64>) -> String {
-    let at =
-        k.at.as_ref()
-            .map(|a| format!(" at {a}"))
-            .unwrap_or_default();
+pub fn failure_text(k: &GateCheck, confidence: Option<f64>, classes: Option<&[String]>) -> String {
+    let at = match (&k.at, k.gate) {
+        (Some(Key::Int(c)), GateName::MinClassAgreement) => {
+            format!(" at class {}", class_label(*c as usize, classes))
+        }
+        (Some(a), _) => format!(" at {a}"),
+        (None, _) => String::new(),
+    };
     match (&k.reason, k.judged) {
         (Some(reason), _) => format!("{}{at}: {reason}", k.gate),
         (None, Some(judged)) => {
@@ -90,6 +101,25 @@ fn rows(r: &Report) -> Vec<[String; 10]> {
         "1".into(),
         "—".into(),
     ]];
+    if let Some(b) = &r.baseline {
+        let acc = b.accuracy.as_ref();
+        out.push([
+            "base".into(),
+            named(&b.model.name, "baseline"),
+            format!("{:.4}", b.fidelity.agreement),
+            format!("{:.4}", b.fidelity.kl),
+            opt(acc.map(|a| a.own.top1)),
+            acc.map_or("—".into(), |a| format!("{:+.4}", a.delta)),
+            format!(
+                "{} {}",
+                significant(b.latency.own.p90_ms),
+                interval(b.latency.own.p90_ci_ms)
+            ),
+            format!("{}×", significant(b.latency.speedup)),
+            significant(b.size.size_ratio),
+            "—".into(),
+        ]);
+    }
     for c in &r.candidates {
         let acc = c.accuracy.as_ref();
         out.push([
@@ -162,7 +192,11 @@ fn failures(r: &Report) -> Vec<(String, String)> {
             c.gates.checks.iter().filter(|k| !k.passed).map(|k| {
                 (
                     c.model.name.clone(),
-                    failure_text(k, r.settings.gates.confidence),
+                    failure_text(
+                        k,
+                        r.settings.gates.confidence,
+                        r.dataset.class_names.as_deref(),
+                    ),
                 )
             })
         })
@@ -176,14 +210,51 @@ fn rank_name(r: &Report) -> String {
         .unwrap_or_default()
 }
 
-/// The plain-text table for a terminal or a CI log.
-pub fn table(r: &Report) -> String {
-    let rows = rows(r);
-    let widths: Vec<usize> = (0..HEADERS.len())
+const VERSUS_HEADERS: [&str; 7] = [
+    "model",
+    "alike",
+    "Δagreement [95% CI]",
+    "teacher flips",
+    "Δtop1 [95% CI]",
+    "negative flips",
+    "speedup",
+];
+
+/// Each candidate against the baseline, when there is one.
+fn versus_rows(r: &Report) -> Vec<[String; 7]> {
+    let signed = |v: f64| format!("{v:+.4}");
+    let with_ci = |v: f64, ci: [f64; 2]| format!("{} {}", signed(v), interval(ci));
+    r.candidates
+        .iter()
+        .filter_map(|c| {
+            let v = c.versus_baseline.as_ref()?;
+            Some([
+                c.model.name.clone(),
+                format!("{:.4}", v.agreement),
+                with_ci(v.agreement_delta, v.agreement_delta_ci),
+                format!("{:.4}", v.teacher_flip_rate),
+                v.top1_delta
+                    .zip(v.top1_delta_ci)
+                    .map_or("—".into(), |(d, ci)| with_ci(d, ci)),
+                opt(v.negative_flip_rate),
+                format!("{}×", significant(v.speedup)),
+            ])
+        })
+        .collect()
+}
+
+/// Lines of a plain-text table with aligned columns; columns in `left`
+/// read left-aligned.
+fn aligned<const N: usize>(
+    headers: [&str; N],
+    rows: &[[String; N]],
+    left: &[usize],
+) -> Vec<String> {
+    let widths: Vec<usize> = (0..N)
         .map(|i| {
             rows.iter()
                 .map(|row| row[i].chars().count())
-                .chain([HEADERS[i].chars().count()])
+                .chain([headers[i].chars().count()])
                 .max()
                 .unwrap_or(0)
         })
@@ -194,7 +265,7 @@ pub fn table(r: &Report) -> String {
             .zip(&widths)
             .enumerate()
             .map(|(i, (c, w))| {
-                if LEFT.contains(&i) {
+                if left.contains(&i) {
                     format!("{c:<w$}")
                 } else {
                     format!("{c:>w$}")
@@ -205,9 +276,15 @@ pub fn table(r: &Report) -> String {
             .trim_end()
             .to_string()
     };
-    let header: Vec<String> = HEADERS.iter().map(|h| h.to_string()).collect();
+    let header: Vec<String> = headers.iter().map(|h| h.to_string()).collect();
     let mut out = vec![line(&header)];
     out.extend(rows.iter().map(|row| line(row)));
+    out
+}
+
+/// The plain-text table for a terminal or a CI log.
+pub fn table(r: &Report) -> String {
+    let mut out = aligned(HEADERS, &rows(r), &LEFT);
     out.push(String::new());
     out.push(format!(
         "{} samples of '{}', T = {}, ranked by {}; * marks the Pareto front (quality, speed, bytes)",
@@ -216,6 +293,14 @@ pub fn table(r: &Report) -> String {
         r.settings.temperature,
         rank_name(r)
     ));
+    if let Some(b) = &r.baseline {
+        out.push(String::new());
+        out.push(format!(
+            "against the baseline {} (the student in production):",
+            b.model.name
+        ));
+        out.extend(aligned(VERSUS_HEADERS, &versus_rows(r), &[0]));
+    }
     out.push(gates_line(r));
     let failed = failures(r);
     if !failed.is_empty() {
@@ -257,6 +342,18 @@ pub fn markdown(r: &Report, page: Option<&str>, json: Option<&str>) -> String {
         r.settings.temperature,
         rank_name(r)
     );
+    if let Some(b) = &r.baseline {
+        out += &format!(
+            "\n**Against the baseline `{}`** (the student in production)\n\n| {} |\n|{}|\n",
+            md_cell(&b.model.name),
+            VERSUS_HEADERS.join(" | "),
+            VERSUS_HEADERS.map(|_| "---").join("|")
+        );
+        for row in versus_rows(r) {
+            let cells: Vec<String> = row.iter().map(|c| md_cell(c)).collect();
+            out += &format!("| {} |\n", cells.join(" | "));
+        }
+    }
     let failed = failures(r);
     if !failed.is_empty() {
         out += "\n**Failed gates**\n\n";
@@ -295,13 +392,26 @@ mod tests {
     fn a_failure_says_what_was_judged_and_at_what_confidence() {
         let k = check(GateName::MinAgreement, 0.881_234_5, 0.893, 0.9);
         assert_eq!(
-            failure_text(&k, Some(0.95)),
+            failure_text(&k, Some(0.95), None),
             "min_agreement: judged 0.8812 (Wilson lower bound at 95 %, estimate 0.893); \
              passes when >= 0.9"
         );
         assert_eq!(
-            failure_text(&k, None),
+            failure_text(&k, None, None),
             "min_agreement: judged 0.8812 (estimate); passes when >= 0.9"
+        );
+    }
+
+    #[test]
+    fn a_class_gate_names_the_class_judged_by_its_name() {
+        let mut k = check(GateName::MinClassAgreement, 0.7, 0.8, 0.9);
+        k.at = Some(Key::Int(1));
+        let names = ["sound".to_string(), "cracked".to_string()];
+        assert!(
+            failure_text(&k, None, Some(&names))
+                .starts_with("min_class_agreement at class 1 (cracked):"),
+            "{}",
+            failure_text(&k, None, Some(&names))
         );
     }
 

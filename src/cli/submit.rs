@@ -9,19 +9,14 @@ use std::time::Duration;
 use serde_json::Value;
 use uuid::Uuid;
 
-use super::client::{Client, ClientError, Stored};
+use super::client::{Client, Stored};
+use super::exit::{EXIT_GO, EXIT_INPUT, EXIT_NO_GO, EXIT_SERVER, Exit};
 use super::{junit, render};
 use crate::engine::gates::{GateName, Gates};
 use crate::engine::settings::RankBy;
 use crate::report::{Report, Verdict};
-use crate::service::EvaluationRequest;
+use crate::service::{BaselineChoice, EvaluationRequest};
 use crate::store::{DatasetRecord, EvaluationRecord, ModelRecord, Status};
-
-/// Exit codes, documented in `--help` and the README.
-pub const EXIT_GO: i32 = 0;
-pub const EXIT_NO_GO: i32 = 1;
-pub const EXIT_INPUT: i32 = 2;
-pub const EXIT_SERVER: i32 = 3;
 
 #[derive(Debug, Clone, clap::Args)]
 #[command(
@@ -55,6 +50,10 @@ pub struct SubmitArgs {
     pub rank_by: Option<String>,
     #[arg(long)]
     pub project: Option<String>,
+    /// The student in production to compare every candidate with: "current"
+    /// (the project's baseline), a stored model's id, or an ONNX file.
+    #[arg(long, value_name = "current|ID|FILE")]
+    pub baseline: Option<String>,
     /// A tag (repeatable), e.g. --tag commit=3f9c2e1.
     #[arg(long = "tag", value_name = "KEY=VALUE")]
     pub tags: Vec<String>,
@@ -72,30 +71,8 @@ pub struct SubmitArgs {
     pub summary: Option<PathBuf>,
 }
 
-/// A failure with the exit code it maps to.
-pub struct Exit {
-    pub code: i32,
-    pub message: String,
-}
-
-impl From<ClientError> for Exit {
-    fn from(e: ClientError) -> Self {
-        let code = match e {
-            ClientError::Input(_) => EXIT_INPUT,
-            ClientError::Server(_) => EXIT_SERVER,
-        };
-        Exit {
-            code,
-            message: e.to_string(),
-        }
-    }
-}
-
 fn input(message: impl Into<String>) -> Exit {
-    Exit {
-        code: EXIT_INPUT,
-        message: message.into(),
-    }
+    Exit::input(message)
 }
 
 fn pair(s: &str, what: &str) -> Result<(String, String), Exit> {
@@ -257,6 +234,13 @@ pub async fn run(args: &SubmitArgs) -> Result<i32, Exit> {
             .push(resolve::<ModelRecord>(&client, s).await?);
     }
     body.dataset = resolve::<DatasetRecord>(&client, &args.data).await?;
+    body.baseline = match args.baseline.as_deref() {
+        None => None,
+        Some("current") => Some(BaselineChoice::Current),
+        Some(given) => Some(BaselineChoice::Model(
+            resolve::<ModelRecord>(&client, given).await?,
+        )),
+    };
     let created = client.create_evaluation(&body).await?;
     let id = created.id;
     if args.no_wait {

@@ -43,7 +43,8 @@ pub struct Report {
 
 /// Every timed run of an evaluation (`GET /v1/evaluations/{id}/timings`):
 /// one row per round in round order, one column per model in `models`
-/// order (the teacher, then the candidates in request order), so that any
+/// order (the teacher, the baseline if any, then the candidates in request
+/// order), so that any
 /// latency figure of the report can be recomputed.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct RoundTimings {

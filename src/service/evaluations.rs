@@ -310,6 +310,7 @@ impl App {
         let r = &record.request;
         Ok(RoundTimings {
             models: std::iter::once(r.teacher)
+                .chain(r.baseline)
                 .chain(r.students.iter().copied())
                 .collect(),
             rounds,

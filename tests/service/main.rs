@@ -10,6 +10,7 @@ mod evaluations;
 #[allow(dead_code)]
 mod harness;
 mod openapi;
+mod projects;
 mod resilience;
 mod sandbox;
 mod upgrade;

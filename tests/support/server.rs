@@ -210,6 +210,14 @@ impl Server {
         Self::send(req.body(text.to_string())).await
     }
 
+    pub async fn put_json(&self, path: &str, body: &Value) -> Answer {
+        let req = self
+            .client
+            .put(self.url(path))
+            .header("content-type", "application/json");
+        Self::send(req.body(body.to_string())).await
+    }
+
     pub async fn upload_model(&self, file: &Path, name: &str) -> Answer {
         self.post_bytes(
             &format!("/v1/models?name={name}"),
