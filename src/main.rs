@@ -21,6 +21,10 @@ enum Command {
     Serve(proctor::config::ServeArgs),
     /// Submit a teacher, students and an evaluation set; exit with the verdict.
     Submit(Box<proctor::cli::submit::SubmitArgs>),
+    /// Follow an evaluation created earlier to its verdict (exit as submit).
+    Wait(proctor::cli::follow::WaitCommand),
+    /// Print the report of an evaluation that has ended (exit as submit).
+    Report(proctor::cli::follow::ReportCommand),
     /// Make a candidate that passed every gate its project's baseline.
     Adopt(proctor::cli::adopt::AdoptArgs),
     /// Run the bundled turbine-acoustics demo on a local service.
@@ -49,6 +53,14 @@ fn main() -> anyhow::Result<()> {
         Command::Submit(args) => {
             let outcome = runtime()?.block_on(proctor::cli::submit::run(&args));
             std::process::exit(exit::code("submit", outcome))
+        }
+        Command::Wait(args) => {
+            let outcome = runtime()?.block_on(proctor::cli::follow::run_wait(&args));
+            std::process::exit(exit::code("wait", outcome))
+        }
+        Command::Report(args) => {
+            let outcome = runtime()?.block_on(proctor::cli::follow::run_report(&args));
+            std::process::exit(exit::code("report", outcome))
         }
         Command::Adopt(args) => {
             let outcome = runtime()?.block_on(proctor::cli::adopt::run(&args));

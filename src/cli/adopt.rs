@@ -16,9 +16,8 @@ use crate::store::Status;
                   succeeded, or the model did not pass every gate), 3 server or network error."
 )]
 pub struct AdoptArgs {
-    /// The Proctor service.
-    #[arg(long, env = "PROCTOR_SERVER", default_value = "http://127.0.0.1:8080")]
-    pub server: String,
+    #[command(flatten)]
+    pub server: super::connection::ServerArgs,
     /// The succeeded evaluation the candidate passed in.
     #[arg(value_name = "EVALUATION_ID")]
     pub evaluation: Uuid,
@@ -32,7 +31,7 @@ fn input(message: String) -> Exit {
 }
 
 pub async fn run(args: &AdoptArgs) -> Result<i32, Exit> {
-    let client = Client::new(&args.server);
+    let client = Client::new(args.server.base(), None);
     let e = client.evaluation(args.evaluation).await?;
     if e.status != Status::Succeeded {
         return Err(input(format!(

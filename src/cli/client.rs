@@ -30,10 +30,41 @@ pub enum ClientError {
 pub struct Client {
     base: String,
     http: reqwest::Client,
+    /// How long one request is retried through transient failures.
+    retry_for: Duration,
+}
+
+/// How long a request is retried through a server restart or a network
+/// blip, unless the command's own time limit is shorter.
+const RETRY_FOR: Duration = Duration::from_secs(300);
+const FIRST_DELAY: Duration = Duration::from_millis(500);
+const LONGEST_DELAY: Duration = Duration::from_secs(8);
+
+/// Which failures a request may be sent again after.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Repeat {
+    /// Reads and idempotent uploads: any connection error, timeout, 502,
+    /// 503 or 504.
+    Freely,
+    /// Requests that change state: only when the service cannot have acted
+    /// on them (the connection failed, or it answered 503, busy).
+    Unprocessed,
 }
 
 fn network(e: reqwest::Error) -> ClientError {
     ClientError::Server(format!("cannot reach the server: {e}"))
+}
+
+/// The wait a 503's `Retry-After` asks for, within reason.
+fn retry_after(res: &reqwest::Response) -> Option<Duration> {
+    let secs: u64 = res
+        .headers()
+        .get(reqwest::header::RETRY_AFTER)?
+        .to_str()
+        .ok()?
+        .parse()
+        .ok()?;
+    Some(Duration::from_secs(secs.clamp(1, 30)))
 }
 
 /// The body of a successful answer, or an error carrying its problem detail.
@@ -97,7 +128,9 @@ impl Stored for DatasetRecord {
 }
 
 impl Client {
-    pub fn new(base: &str) -> Client {
+    /// A client of the service at `base`; `limit`, the command's own time
+    /// limit, caps how long a request is retried.
+    pub fn new(base: &str, limit: Option<Duration>) -> Client {
         let http = reqwest::Client::builder()
             .connect_timeout(Duration::from_secs(10))
             .build()
@@ -105,6 +138,7 @@ impl Client {
         Client {
             base: base.trim_end_matches('/').to_string(),
             http,
+            retry_for: limit.map_or(RETRY_FOR, |l| l.min(RETRY_FOR)),
         }
     }
 
@@ -112,15 +146,43 @@ impl Client {
         format!("{}{path}", self.base)
     }
 
+    /// Sends a request built by `build`, again and again with growing
+    /// pauses while the failure is transient, for at most `retry_for`.
+    async fn send(
+        &self,
+        build: impl Fn() -> Result<reqwest::RequestBuilder, ClientError>,
+        repeat: Repeat,
+    ) -> Result<reqwest::Response, ClientError> {
+        let started = std::time::Instant::now();
+        let mut delay = FIRST_DELAY;
+        loop {
+            let outcome = build()?.send().await;
+            let (transient, wait) = match &outcome {
+                Err(e) if e.is_connect() => (true, None),
+                Err(e) => (repeat == Repeat::Freely && (e.is_timeout() || e.is_request()), None),
+                Ok(res) => match res.status().as_u16() {
+                    503 => (true, retry_after(res)),
+                    502 | 504 => (repeat == Repeat::Freely, None),
+                    _ => (false, None),
+                },
+            };
+            let pause = wait.unwrap_or(delay);
+            if !transient || started.elapsed() + pause > self.retry_for {
+                return outcome.map_err(network);
+            }
+            let why = match &outcome {
+                Err(e) => e.to_string(),
+                Ok(res) => format!("the server answered {}", res.status().as_u16()),
+            };
+            eprintln!("{why}; trying again in {} s", pause.as_secs_f64());
+            tokio::time::sleep(pause).await;
+            delay = (delay * 2).min(LONGEST_DELAY);
+        }
+    }
+
     async fn get_text(&self, path: &str) -> Result<String, ClientError> {
-        checked(
-            self.http
-                .get(self.url(path))
-                .send()
-                .await
-                .map_err(network)?,
-        )
-        .await
+        let url = self.url(path);
+        checked(self.send(|| Ok(self.http.get(&url)), Repeat::Freely).await?).await
     }
 
     /// The stored record with this content, if the server has one.
@@ -132,40 +194,48 @@ impl Client {
         Ok(page.items.into_iter().next())
     }
 
-    /// Streams a file to the server and returns the stored record.
+    /// Streams a file to the server and returns the stored record. An
+    /// upload is idempotent (the same bytes are one record), so a broken
+    /// one is sent again from the start.
     pub async fn upload<T: Stored>(&self, path: &Path, name: &str) -> Result<T, ClientError> {
-        let file = tokio::fs::File::open(path)
-            .await
-            .map_err(|e| ClientError::Input(format!("cannot read {}: {e}", path.display())))?;
-        let len = file.metadata().await.map(|m| m.len()).ok();
-        let body =
-            reqwest::Body::wrap_stream(tokio_util::io::ReaderStream::with_capacity(file, 1 << 18));
-        let mut req = self
-            .http
-            .post(self.url(T::PATH))
-            .query(&[("name", name)])
-            .header("content-type", "application/octet-stream")
-            .body(body);
-        if let Some(len) = len {
-            req = req.header("content-length", len);
-        }
-        let text = checked(req.send().await.map_err(network)?).await?;
+        let url = self.url(T::PATH);
+        let build = || {
+            let file = std::fs::File::open(path)
+                .map_err(|e| ClientError::Input(format!("cannot read {}: {e}", path.display())))?;
+            let len = file.metadata().map(|m| m.len()).ok();
+            let stream = tokio_util::io::ReaderStream::with_capacity(
+                tokio::fs::File::from_std(file),
+                1 << 18,
+            );
+            let mut req = self
+                .http
+                .post(&url)
+                .query(&[("name", name)])
+                .header("content-type", "application/octet-stream")
+                .body(reqwest::Body::wrap_stream(stream));
+            if let Some(len) = len {
+                req = req.header("content-length", len);
+            }
+            Ok(req)
+        };
+        let text = checked(self.send(build, Repeat::Freely).await?).await?;
         parsed(&text, "upload answer")
     }
 
-    /// The id for a file: found by its hash, or uploaded. The flag says
-    /// whether it was uploaded.
-    pub async fn ensure<T: Stored>(&self, path: &Path) -> Result<(Uuid, bool), ClientError> {
+    /// The id for a file: found by its hash, or uploaded under `name`. The
+    /// flag says whether it was uploaded.
+    pub async fn ensure<T: Stored>(
+        &self,
+        path: &Path,
+        name: &str,
+    ) -> Result<(Uuid, bool), ClientError> {
         let sha = sha256_of(path)
             .await
             .map_err(|e| ClientError::Input(format!("cannot read {}: {e}", path.display())))?;
         if let Some(found) = self.find::<T>(&sha).await? {
             return Ok((found.id(), false));
         }
-        let name = path
-            .file_stem()
-            .map_or("upload".into(), |s| s.to_string_lossy().into_owned());
-        let record: T = self.upload(path, &name).await?;
+        let record: T = self.upload(path, name).await?;
         Ok((record.id(), true))
     }
 
@@ -173,13 +243,10 @@ impl Client {
         &self,
         body: &EvaluationRequest,
     ) -> Result<EvaluationRecord, ClientError> {
+        let url = self.url("/v1/evaluations");
         let res = self
-            .http
-            .post(self.url("/v1/evaluations"))
-            .json(body)
-            .send()
-            .await
-            .map_err(network)?;
+            .send(|| Ok(self.http.post(&url).json(body)), Repeat::Unprocessed)
+            .await?;
         parsed(&checked(res).await?, "evaluation")
     }
 
@@ -194,13 +261,10 @@ impl Client {
         project: &str,
         body: &SetBaseline,
     ) -> Result<Project, ClientError> {
+        let url = self.url(&format!("/v1/projects/{project}/baseline"));
         let res = self
-            .http
-            .put(self.url(&format!("/v1/projects/{project}/baseline")))
-            .json(body)
-            .send()
-            .await
-            .map_err(network)?;
+            .send(|| Ok(self.http.put(&url).json(body)), Repeat::Unprocessed)
+            .await?;
         parsed(&checked(res).await?, "project")
     }
 

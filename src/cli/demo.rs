@@ -8,7 +8,16 @@ use std::path::PathBuf;
 
 use anyhow::Context;
 
+use clap::Parser;
+
 use super::submit::{self, SubmitArgs};
+
+/// `submit`'s flags, parsed as the command line would parse them.
+#[derive(Parser)]
+struct SubmitCommand {
+    #[command(flatten)]
+    args: SubmitArgs,
+}
 use crate::config::ServeArgs;
 use crate::server;
 
@@ -84,24 +93,33 @@ pub async fn run(args: &DemoArgs) -> anyhow::Result<i32> {
         data_dir.display()
     );
     let path = |name: &str| files.join(name).to_string_lossy().into_owned();
-    let submit = SubmitArgs {
-        server: base.clone(),
-        teacher: path("teacher.onnx"),
-        students: FILES[1..5].iter().map(|(n, _)| path(n)).collect(),
-        data: path("frames.npz"),
-        gates: None,
-        gate: GATES.iter().map(|g| g.to_string()).collect(),
-        temperature: Some(4.0),
-        alpha: Some(0.9),
-        rank_by: None,
-        project: Some("turbine-acoustics".into()),
-        baseline: None,
-        tags: vec!["source=demo".into()],
-        no_wait: false,
-        json: None,
-        junit: None,
-        summary: None,
-    };
+    // The demo submits with the flags a team's CI step would pass.
+    let mut argv: Vec<String> = ["submit", "--server", &base, "--teacher", &path("teacher.onnx")]
+        .map(String::from)
+        .to_vec();
+    for (name, _) in &FILES[1..5] {
+        argv.extend(["--student".into(), path(name)]);
+    }
+    argv.extend(["--data".into(), path("frames.npz")]);
+    for g in GATES {
+        argv.extend(["--gate".into(), g.to_string()]);
+    }
+    argv.extend(
+        [
+            "--temperature",
+            "4",
+            "--alpha",
+            "0.9",
+            "--project",
+            "turbine-acoustics",
+            "--tag",
+            "source=demo",
+        ]
+        .map(String::from),
+    );
+    let submit = SubmitCommand::try_parse_from(argv)
+        .expect("the demo's own flags parse")
+        .args;
     let code = match submit::run(&submit).await {
         Ok(_) => 0,
         Err(e) => {

@@ -1,74 +1,41 @@
 //! Gates as JUnit XML, so CI systems show them as tests: one testsuite per
-//! candidate, one testcase per gate, a failure element with the threshold
-//! and the value judged.
+//! candidate (named by the model alone, so test histories do not churn with
+//! the rank), one testcase per gate, a failure with the value judged. The
+//! XML is written by quick-junit, which keeps names with characters XML
+//! cannot hold from breaking the file.
 
+use quick_junit::{NonSuccessKind, Property, Report as JUnit, TestCase, TestCaseStatus, TestSuite};
+
+use super::render::failure_text;
 use crate::report::Report;
 
-fn escape(s: &str) -> String {
-    s.replace('&', "&amp;")
-        .replace('<', "&lt;")
-        .replace('>', "&gt;")
-        .replace('"', "&quot;")
-        .replace('\'', "&apos;")
-}
-
-fn num(v: Option<f64>) -> String {
-    v.map_or("undefined".into(), |x| format!("{x}"))
-}
-
 pub fn junit(r: &Report) -> String {
-    let tests: usize = r.candidates.iter().map(|c| c.gates.checks.len()).sum();
-    let failures: usize = r
-        .candidates
-        .iter()
-        .map(|c| c.gates.checks.iter().filter(|k| !k.passed).count())
-        .sum();
-    let mut out = String::from("<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n");
-    out += &format!(
-        "<testsuites name=\"proctor {}\" tests=\"{tests}\" failures=\"{failures}\">\n",
-        r.evaluation
-    );
+    let mut out = JUnit::new(format!("proctor {}", r.evaluation));
     for c in &r.candidates {
-        let failed = c.gates.checks.iter().filter(|k| !k.passed).count();
-        out += &format!(
-            "  <testsuite name=\"{}\" id=\"{}\" tests=\"{}\" failures=\"{failed}\">\n",
-            escape(&c.model.name),
-            c.model.id,
-            c.gates.checks.len()
-        );
+        let mut suite = TestSuite::new(c.model.name.as_str());
+        suite.add_property(Property::new("model_id", c.model.id.to_string()));
+        suite.add_property(Property::new("evaluation", r.evaluation.to_string()));
         for k in &c.gates.checks {
-            let class = escape(&format!("proctor.{}", c.model.name));
-            if k.passed {
-                out += &format!(
-                    "    <testcase classname=\"{class}\" name=\"{}\"/>\n",
-                    escape(k.gate.as_str())
-                );
+            let status = if k.passed {
+                TestCaseStatus::success()
             } else {
-                let why = k.reason.clone().unwrap_or_else(|| {
-                    format!("judged {} against threshold {}", num(k.judged), k.threshold)
-                });
-                out += &format!(
-                    "    <testcase classname=\"{class}\" name=\"{gate}\">\n      <failure type=\"gate\" message=\"{msg}\">gate={gate} threshold={} judged={} estimate={}</failure>\n    </testcase>\n",
+                let why = failure_text(k, r.settings.gates.confidence, r.dataset.class_names.as_deref());
+                let mut s = TestCaseStatus::non_success(NonSuccessKind::Failure);
+                s.set_type("gate").set_message(why).set_description(format!(
+                    "gate={} threshold={} judged={} estimate={}",
+                    k.gate,
                     k.threshold,
-                    num(k.judged),
-                    num(k.estimate),
-                    gate = escape(k.gate.as_str()),
-                    msg = escape(&why),
-                );
-            }
+                    k.judged.map_or("undefined".into(), |v| v.to_string()),
+                    k.estimate.map_or("undefined".into(), |v| v.to_string()),
+                ));
+                s
+            };
+            let mut case = TestCase::new(k.gate.as_str(), status);
+            case.set_classname(format!("proctor.{}", c.model.name));
+            suite.add_test_case(case);
         }
-        out += "  </testsuite>\n";
+        out.add_test_suite(suite);
     }
-    out += "</testsuites>\n";
-    out
-}
-
-#[cfg(test)]
-mod tests {
-    use super::escape;
-
-    #[test]
-    fn markup_in_names_is_escaped() {
-        assert_eq!(escape("a<b & \"c\""), "a&lt;b &amp; &quot;c&quot;");
-    }
+    out.to_string()
+        .expect("quick-junit writes every report it is given")
 }

@@ -1,31 +1,43 @@
-//! `proctor submit`: the CI gate. Uploads what the server lacks, creates an
-//! evaluation, waits for it, prints the ranked table and writes the
-//! requested files. The exit code is the verdict.
+//! `proctor submit`: the CI gate. Checks its arguments, uploads what the
+//! server lacks, creates an evaluation, follows it, prints the ranked table
+//! and writes the requested files. The exit code is the verdict.
 
-use std::io::IsTerminal;
+use std::collections::{BTreeMap, HashMap};
 use std::path::{Path, PathBuf};
-use std::time::Duration;
+use std::time::Instant;
 
 use serde_json::Value;
 use uuid::Uuid;
 
 use super::client::{Client, Stored};
-use super::exit::{EXIT_GO, EXIT_INPUT, EXIT_NO_GO, EXIT_SERVER, Exit};
-use super::{junit, render};
+use super::connection::{ServerArgs, WaitArgs};
+use super::exit::{EXIT_GO, Exit};
+use super::follow::{conclude, wait};
+use super::outputs::OutputArgs;
 use crate::engine::gates::{GateName, Gates};
-use crate::engine::settings::RankBy;
-use crate::report::{Report, Verdict};
+use crate::engine::logits::OutputKindChoice;
+use crate::engine::settings::{OutputChoice, RankBy};
 use crate::service::{BaselineChoice, EvaluationRequest};
-use crate::store::{DatasetRecord, EvaluationRecord, ModelRecord, Status};
+use crate::store::{DatasetRecord, ModelRecord};
+
+/// The exit codes of the commands that end with a verdict.
+pub const EXIT_CODES: &str = "Exit codes: 0 go, 1 no-go, 2 usage or input error (a missing \
+file, a gate the server refuses, an evaluation that failed on its input), 3 server or network \
+error, or the time limit passed (the evaluation's id is printed).";
+
+fn after_help() -> String {
+    format!(
+        "Gates (--gate NAME=VALUE, or a JSON object in --gates FILE): {}; and confidence=C to \
+         judge gates at the cautious end of their interval.\n\n{EXIT_CODES}",
+        GateName::all_names()
+    )
+}
 
 #[derive(Debug, Clone, clap::Args)]
-#[command(
-    after_help = "Exit codes: 0 go, 1 no-go, 2 usage or input error, 3 server or network error."
-)]
+#[command(after_help = after_help())]
 pub struct SubmitArgs {
-    /// The Proctor service.
-    #[arg(long, env = "PROCTOR_SERVER", default_value = "http://127.0.0.1:8080")]
-    pub server: String,
+    #[command(flatten)]
+    pub server: ServerArgs,
     /// The teacher: an ONNX file, or the id of a stored model.
     #[arg(long, value_name = "FILE|ID")]
     pub teacher: String,
@@ -35,40 +47,69 @@ pub struct SubmitArgs {
     /// The evaluation set: an .npz or .npy file, or a stored set's id.
     #[arg(long, value_name = "FILE|ID")]
     pub data: String,
+    /// The student in production to compare every candidate with: "current"
+    /// (the project's baseline), a stored model's id, or an ONNX file.
+    #[arg(long, value_name = "current|ID|FILE")]
+    pub baseline: Option<String>,
     /// A JSON file holding an object of gates, e.g. {"min_agreement": 0.95}.
     #[arg(long, value_name = "FILE")]
     pub gates: Option<PathBuf>,
     /// One gate (repeatable), e.g. --gate max_p90_ms=5; overrides --gates.
     #[arg(long = "gate", value_name = "NAME=VALUE")]
     pub gate: Vec<String>,
+    /// The distillation temperature T at which KL and soft cross-entropy are
+    /// measured (default 4).
     #[arg(long)]
     pub temperature: Option<f64>,
+    /// The weight of the soft term in the reported distillation loss, 0..1
+    /// (default 0.5).
     #[arg(long)]
     pub alpha: Option<f64>,
-    /// agreement, kl, top1, p50_ms or bytes.
+    /// Orders candidates inside the gate groups: agreement, kl, top1,
+    /// p50_ms or bytes (default agreement).
     #[arg(long)]
     pub rank_by: Option<String>,
+    /// The project the evaluation belongs to (default "default").
     #[arg(long)]
     pub project: Option<String>,
-    /// The student in production to compare every candidate with: "current"
-    /// (the project's baseline), a stored model's id, or an ONNX file.
-    #[arg(long, value_name = "current|ID|FILE")]
-    pub baseline: Option<String>,
+    /// Samples per call in the bulk pass (1..4096, default 32).
+    #[arg(long, value_name = "N")]
+    pub batch_size: Option<u32>,
+    /// Untimed runs of each model before the timed rounds (default 10).
+    #[arg(long, value_name = "N")]
+    pub warmup: Option<u32>,
+    /// Timed rounds, each running every model once (default 100).
+    #[arg(long, value_name = "N")]
+    pub iterations: Option<u32>,
+    /// Relative speed difference below which two models count as equally
+    /// fast, 0..0.5 (default 0.03).
+    #[arg(long, value_name = "FRACTION")]
+    pub tolerance: Option<f64>,
+    /// The output to score: NAME for every model, or MODEL=NAME (repeatable)
+    /// with MODEL a file or id given above; by default each model's first
+    /// float output that squeezes to [batch, classes].
+    #[arg(long = "output", value_name = "NAME|MODEL=NAME")]
+    pub output: Vec<String>,
+    /// What the scored outputs hold: teacher=KIND and/or students=KIND, KIND
+    /// one of auto, logits, probabilities (default auto).
+    #[arg(long = "output-kind", value_name = "WHO=KIND")]
+    pub output_kind: Vec<String>,
+    /// The name an uploaded file is stored under: FILE=NAME (repeatable);
+    /// by default the file's stem.
+    #[arg(long = "name", value_name = "FILE=NAME")]
+    pub names: Vec<String>,
     /// A tag (repeatable), e.g. --tag commit=3f9c2e1.
     #[arg(long = "tag", value_name = "KEY=VALUE")]
     pub tags: Vec<String>,
-    /// Print the evaluation id and exit without waiting.
+    /// Print the evaluation's id once it is queued and exit 0 without
+    /// waiting: 0 then means queued, not go. `proctor wait ID` follows it to
+    /// its verdict later.
     #[arg(long)]
     pub no_wait: bool,
-    /// Write the full report as JSON here.
-    #[arg(long, value_name = "PATH")]
-    pub json: Option<PathBuf>,
-    /// Write the gates as JUnit XML here.
-    #[arg(long, value_name = "PATH")]
-    pub junit: Option<PathBuf>,
-    /// Write a Markdown summary here (for CI job pages).
-    #[arg(long, value_name = "PATH")]
-    pub summary: Option<PathBuf>,
+    #[command(flatten)]
+    pub wait: WaitArgs,
+    #[command(flatten)]
+    pub outputs: OutputArgs,
 }
 
 fn input(message: impl Into<String>) -> Exit {
@@ -114,22 +155,96 @@ fn gates(args: &SubmitArgs) -> Result<Gates, Exit> {
     Ok(gates)
 }
 
-fn rank_by(args: &SubmitArgs) -> Result<RankBy, Exit> {
-    match &args.rank_by {
-        None => Ok(RankBy::default()),
-        Some(r) => serde_json::from_value(Value::String(r.clone())).map_err(|_| {
-            input(format!(
-                "--rank-by must be agreement, kl, top1, p50_ms or bytes, not '{r}'"
-            ))
-        }),
+/// A word of a closed list, as the request spells it.
+fn word<T: serde::de::DeserializeOwned>(text: &str, flag: &str, choices: &str) -> Result<T, Exit> {
+    serde_json::from_value(Value::String(text.to_string()))
+        .map_err(|_| input(format!("{flag} must be {choices}, not '{text}'")))
+}
+
+fn apply_output_kinds(args: &SubmitArgs, body: &mut EvaluationRequest) -> Result<(), Exit> {
+    for given in &args.output_kind {
+        let (who, kind) = pair(given, "--output-kind")?;
+        let kind: OutputKindChoice =
+            word(&kind, "--output-kind", "auto, logits or probabilities")?;
+        match who.as_str() {
+            "teacher" => body.output_kind.teacher = kind,
+            "students" => body.output_kind.students = kind,
+            _ => {
+                return Err(input(format!(
+                    "--output-kind takes teacher=KIND or students=KIND, not '{given}'"
+                )));
+            }
+        }
+    }
+    Ok(())
+}
+
+/// Everything of the request that the arguments alone decide, checked
+/// before any file is read.
+fn settings_of(args: &SubmitArgs) -> Result<EvaluationRequest, Exit> {
+    let nil = Uuid::nil();
+    let mut body = EvaluationRequest::new(nil, vec![], nil);
+    body.gates = gates(args)?;
+    if let Some(r) = &args.rank_by {
+        body.rank_by = word::<RankBy>(r, "--rank-by", "agreement, kl, top1, p50_ms or bytes")?;
+    }
+    for t in &args.tags {
+        let (k, v) = pair(t, "--tag")?;
+        body.tags.insert(k, v);
+    }
+    body.temperature = args.temperature;
+    body.alpha = args.alpha;
+    body.batch_size = args.batch_size;
+    if let Some(w) = args.warmup {
+        body.latency.warmup = w;
+    }
+    if let Some(i) = args.iterations {
+        body.latency.iterations = i;
+    }
+    if let Some(t) = args.tolerance {
+        body.latency.tolerance = t;
+    }
+    apply_output_kinds(args, &mut body)?;
+    if let Some(p) = &args.project {
+        body.project = p.clone();
+    }
+    Ok(body)
+}
+
+/// `--output`: one name for all, or names per model as given on the
+/// command line (resolved to ids once the files are uploaded).
+enum Outputs {
+    Default,
+    Every(String),
+    PerModel(HashMap<String, String>),
+}
+
+fn outputs(args: &SubmitArgs) -> Result<Outputs, Exit> {
+    match args.output.as_slice() {
+        [] => Ok(Outputs::Default),
+        [one] if !one.contains('=') => Ok(Outputs::Every(one.clone())),
+        many => many
+            .iter()
+            .map(|o| pair(o, "--output"))
+            .collect::<Result<HashMap<_, _>, _>>()
+            .map(Outputs::PerModel),
     }
 }
 
-/// A file is uploaded (unless the server has it); anything else must be an id.
-async fn resolve<T: Stored>(client: &Client, given: &str) -> Result<Uuid, Exit> {
+/// A file is uploaded under its name (unless the server has it); anything
+/// else must be an id.
+async fn resolve<T: Stored>(
+    client: &Client,
+    given: &str,
+    names: &HashMap<String, String>,
+) -> Result<Uuid, Exit> {
     let path = Path::new(given);
     if path.is_file() {
-        let (id, uploaded) = client.ensure::<T>(path).await?;
+        let stem = path
+            .file_stem()
+            .map_or("upload".into(), |s| s.to_string_lossy().into_owned());
+        let name = names.get(given).cloned().unwrap_or(stem);
+        let (id, uploaded) = client.ensure::<T>(path, &name).await?;
         let how = if uploaded {
             "uploaded"
         } else {
@@ -142,140 +257,60 @@ async fn resolve<T: Stored>(client: &Client, given: &str) -> Result<Uuid, Exit> 
         .map_err(|_| input(format!("'{given}' is neither a file nor a stored id")))
 }
 
-/// Everything of the request that the arguments alone decide, checked
-/// before any file is read.
-fn settings_of(args: &SubmitArgs) -> Result<EvaluationRequest, Exit> {
-    let nil = Uuid::nil();
-    let mut body = EvaluationRequest::new(nil, vec![], nil);
-    body.gates = gates(args)?;
-    body.rank_by = rank_by(args)?;
-    for t in &args.tags {
-        let (k, v) = pair(t, "--tag")?;
-        body.tags.insert(k, v);
-    }
-    body.temperature = args.temperature;
-    body.alpha = args.alpha;
-    if let Some(p) = &args.project {
-        body.project = p.clone();
-    }
-    Ok(body)
-}
-
-/// Waits for the evaluation to finish, drawing its progress on stderr.
-pub async fn wait(client: &Client, id: Uuid) -> Result<EvaluationRecord, Exit> {
-    let live = std::io::stderr().is_terminal();
-    let mut last_line = String::new();
-    loop {
-        let e = client.evaluation(id).await?;
-        let (stage, done, total) = (e.progress.stage.as_str(), e.progress.done, e.progress.total);
-        let pct = (100 * done).checked_div(total).unwrap_or(0);
-        let line = if live {
-            let filled = (pct / 5) as usize;
-            format!(
-                "{:>9} {stage:<8} [{}{}] {done}/{total}",
-                e.status.as_str(),
-                "#".repeat(filled),
-                ".".repeat(20 - filled)
-            )
-        } else {
-            // Plain lines: one per stage and per tenth of it.
-            format!("{} {stage} {}%", e.status.as_str(), pct / 10 * 10)
-        };
-        if line != last_line {
-            if live {
-                eprint!("\r{line}\x1b[K");
-            } else {
-                eprintln!("{line}");
-            }
-            last_line = line;
-        }
-        if e.status.is_finished() {
-            if live {
-                eprintln!();
-            }
-            return Ok(e);
-        }
-        tokio::time::sleep(Duration::from_millis(if live { 200 } else { 500 })).await;
-    }
-}
-
-/// Prints the table and writes the requested files.
-pub fn publish(args: &SubmitArgs, report: &Report, raw: &str) -> Result<(), Exit> {
-    print!("{}", render::table(report));
-    let write = |path: &Path, text: String| {
-        std::fs::write(path, text)
-            .map_err(|e| input(format!("cannot write {}: {e}", path.display())))
-    };
-    if let Some(p) = &args.json {
-        let pretty = serde_json::from_str::<Value>(raw)
-            .and_then(|v| serde_json::to_string_pretty(&v))
-            .unwrap_or_else(|_| raw.to_string());
-        write(p, pretty)?;
-    }
-    if let Some(p) = &args.junit {
-        write(p, junit::junit(report))?;
-    }
-    if let Some(p) = &args.summary {
-        let base = args.server.trim_end_matches('/');
-        let page = format!("{base}/evaluations/{}", report.evaluation);
-        let json = format!("{base}/v1/evaluations/{}/report", report.evaluation);
-        write(p, render::markdown(report, Some(&page), Some(&json)))?;
-    }
-    Ok(())
-}
-
 /// The whole submission; returns the exit code.
 pub async fn run(args: &SubmitArgs) -> Result<i32, Exit> {
     let mut body = settings_of(args)?;
-    let client = Client::new(&args.server);
-    body.teacher = resolve::<ModelRecord>(&client, &args.teacher).await?;
+    let wanted_outputs = outputs(args)?;
+    let names: HashMap<String, String> = args
+        .names
+        .iter()
+        .map(|n| pair(n, "--name"))
+        .collect::<Result<_, _>>()?;
+    let deadline = args.wait.timeout.map(|t| Instant::now() + t);
+    let client = Client::new(args.server.base(), args.wait.timeout);
+    let mut ids: HashMap<&str, Uuid> = HashMap::new();
+    body.teacher = resolve::<ModelRecord>(&client, &args.teacher, &names).await?;
+    ids.insert(&args.teacher, body.teacher);
     for s in &args.students {
-        body.students
-            .push(resolve::<ModelRecord>(&client, s).await?);
+        let id = resolve::<ModelRecord>(&client, s, &names).await?;
+        ids.insert(s, id);
+        body.students.push(id);
     }
-    body.dataset = resolve::<DatasetRecord>(&client, &args.data).await?;
+    body.dataset = resolve::<DatasetRecord>(&client, &args.data, &names).await?;
     body.baseline = match args.baseline.as_deref() {
         None => None,
         Some("current") => Some(BaselineChoice::Current),
-        Some(given) => Some(BaselineChoice::Model(
-            resolve::<ModelRecord>(&client, given).await?,
-        )),
+        Some(given) => {
+            let id = resolve::<ModelRecord>(&client, given, &names).await?;
+            ids.insert(given, id);
+            Some(BaselineChoice::Model(id))
+        }
+    };
+    body.output = match wanted_outputs {
+        Outputs::Default => None,
+        Outputs::Every(name) => Some(OutputChoice::Every(name)),
+        Outputs::PerModel(map) => {
+            let mut by_id = BTreeMap::new();
+            for (model, name) in map {
+                let id = ids.get(model.as_str()).copied().ok_or_else(|| {
+                    input(format!(
+                        "--output {model}=...: '{model}' is not a --teacher, --student or \
+                         --baseline given above"
+                    ))
+                })?;
+                by_id.insert(id, name);
+            }
+            Some(OutputChoice::PerModel(by_id))
+        }
     };
     let created = client.create_evaluation(&body).await?;
     let id = created.id;
     if args.no_wait {
+        eprintln!("evaluation {id} queued; exit 0 here means queued, not go");
         println!("{id}");
         return Ok(EXIT_GO);
     }
     eprintln!("evaluation {id} queued");
-    let done = wait(&client, id).await?;
-    match done.status {
-        Status::Succeeded => {}
-        Status::Failed => {
-            let (status, detail) = done
-                .error
-                .map_or((500, "no detail".to_string()), |p| (p.status, p.detail));
-            let code = if status == 422 {
-                EXIT_INPUT
-            } else {
-                EXIT_SERVER
-            };
-            return Err(Exit {
-                code,
-                message: format!("the evaluation failed: {detail}"),
-            });
-        }
-        other => {
-            return Err(Exit {
-                code: EXIT_SERVER,
-                message: format!("the evaluation ended {}", other.as_str()),
-            });
-        }
-    }
-    let (raw, report) = client.report(id).await?;
-    publish(args, &report, &raw)?;
-    Ok(match report.verdict {
-        Verdict::Go => EXIT_GO,
-        Verdict::NoGo => EXIT_NO_GO,
-    })
+    let done = wait(&client, id, deadline).await?;
+    conclude(&client, &done, &args.outputs, args.server.base()).await
 }

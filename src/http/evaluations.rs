@@ -2,7 +2,7 @@
 
 use axum::Json;
 use axum::extract::{Path, State};
-use axum::http::{StatusCode, header};
+use axum::http::{HeaderMap, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 
 use super::extract::{JsonBody, QueryMap, path_id};
@@ -32,11 +32,23 @@ pub(super) async fn get(
     Ok(Json(app.evaluation(path_id(&id, "evaluation")?).await?).into_response())
 }
 
+/// The report as stored (JSON), or its ranked candidates as CSV for
+/// clients that ask for `text/csv`.
 pub(super) async fn report(
     State(app): State<App>,
     Path(id): Path<String>,
+    headers: HeaderMap,
 ) -> Result<Response, AppError> {
-    let body = app.report(path_id(&id, "evaluation")?).await?;
+    let id = path_id(&id, "evaluation")?;
+    let wants_csv = headers
+        .get(header::ACCEPT)
+        .and_then(|v| v.to_str().ok())
+        .is_some_and(|a| a.contains("text/csv"));
+    if wants_csv {
+        let csv = app.report_csv(id).await?;
+        return Ok(([(header::CONTENT_TYPE, "text/csv; charset=utf-8")], csv).into_response());
+    }
+    let body = app.report(id).await?;
     Ok(([(header::CONTENT_TYPE, "application/json")], body).into_response())
 }
 

@@ -2,6 +2,7 @@
 //! only describe; the engine fills them and the service stores and serves
 //! them unchanged.
 
+pub mod csv;
 mod finite;
 pub mod numbers;
 

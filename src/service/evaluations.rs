@@ -299,6 +299,18 @@ impl App {
         }
     }
 
+    /// The report's ranked candidates as CSV.
+    pub async fn report_csv(&self, id: Uuid) -> Result<String, AppError> {
+        let body = self.report(id).await?;
+        let report: crate::report::Report = serde_json::from_str(&body).map_err(|_| {
+            AppError::Conflict(format!(
+                "the report of evaluation {id} was written by an earlier version; it is served \
+                 as JSON only"
+            ))
+        })?;
+        Ok(crate::report::csv::candidates_csv(&report))
+    }
+
     /// Every timed run of a succeeded evaluation.
     pub async fn timings(&self, id: Uuid) -> Result<RoundTimings, AppError> {
         let record = self.evaluation(id).await?;

@@ -14,6 +14,10 @@ use std::process::{Command, Output};
 use harness::Server;
 use support::case_dir;
 
+mod following;
+mod outputs;
+mod settings;
+
 fn proctor(args: &[&str]) -> Output {
     Command::new(env!("CARGO_BIN_EXE_proctor"))
         .args(args)
@@ -260,6 +264,8 @@ async fn input_errors_exit_2_and_server_errors_exit_3() {
     );
     let down = proctor(&[
         "submit",
+        "--timeout",
+        "2s",
         "--server",
         &base,
         "--teacher",

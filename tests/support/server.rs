@@ -57,6 +57,10 @@ impl Server {
     }
 
     fn launch(data_dir: &Path, extra: &[&str], hold_at: Option<&str>) -> Server {
+        Server::launch_on(data_dir, "127.0.0.1:0", extra, hold_at)
+    }
+
+    fn launch_on(data_dir: &Path, listen: &str, extra: &[&str], hold_at: Option<&str>) -> Server {
         let log = std::fs::OpenOptions::new()
             .create(true)
             .append(true)
@@ -64,7 +68,7 @@ impl Server {
             .unwrap();
         let mut cmd = Command::new(env!("CARGO_BIN_EXE_proctor"));
         cmd.arg("serve")
-            .args(["--listen", "127.0.0.1:0", "--data-dir"])
+            .args(["--listen", listen, "--data-dir"])
             .arg(data_dir)
             .args(extra)
             .env_remove(HOLD_AT)
@@ -137,6 +141,15 @@ impl Server {
     /// Lets evaluations held at their stage go on.
     pub fn release(&self) {
         std::fs::write(self.data_dir.join(RELEASE_FILE), b"").unwrap();
+    }
+
+    /// Stops the server (SIGTERM) and starts it again on the same data dir
+    /// and address, as a deploy would, without holding at any stage.
+    pub fn restart(&mut self) {
+        assert!(self.terminate().success(), "a clean exit on SIGTERM");
+        let address = self.base.trim_start_matches("http://").to_string();
+        let mut again = Server::launch_on(&self.data_dir, &address, &[], None);
+        self.child = again.child.take();
     }
 
     /// Kills the server with SIGKILL, as a crash would.
