@@ -3,6 +3,8 @@
 
 use maud::{DOCTYPE, Markup, html};
 
+use crate::report::Verdict;
+
 /// An empty icon inline, so the browser asks for no /favicon.ico.
 const ICON: &str = "data:image/svg+xml,%3Csvg xmlns='http://www.w3.org/2000/svg' viewBox='0 0 16 16'%3E%3Crect width='16' height='16' rx='3' fill='%231f6f78'/%3E%3C/svg%3E";
 
@@ -39,8 +41,7 @@ pub(super) fn page(title: &str, refresh: bool, body: Markup) -> Markup {
     }
 }
 
-pub(super) fn verdict_badge(v: Option<crate::report::Verdict>) -> Markup {
-    use crate::report::Verdict;
+pub(super) fn verdict_badge(v: Option<Verdict>) -> Markup {
     html! {
         @match v {
             Some(Verdict::Go) => span.verdict.go title="at least one candidate passes every gate" { "GO ✓" },

@@ -18,16 +18,21 @@ pub struct Browser {
     _profile: tempfile::TempDir,
 }
 
+/// An element's box on the page, in CSS pixels.
+#[derive(Debug, Clone, Copy)]
+pub struct Rect {
+    pub left: f64,
+    pub right: f64,
+    pub top: f64,
+    pub bottom: f64,
+}
+
 /// Elements found by CSS, with their attributes and text.
 pub struct Found(Element);
 
 impl Found {
     pub async fn attr(&self, name: &str) -> Option<String> {
         self.0.attr(name).await.unwrap()
-    }
-
-    pub async fn text(&self) -> String {
-        self.0.text().await.unwrap()
     }
 }
 
@@ -48,6 +53,35 @@ impl WebDriverCompatibleCommand for BrowserLog {
         (
             http::Method::POST,
             Some(json!({"type": "browser"}).to_string()),
+        )
+    }
+}
+
+/// A Chrome DevTools command through chromedriver (`goog/cdp/execute`):
+/// the viewport is set this way, since a headless window will not grow
+/// taller than its screen.
+#[derive(Debug)]
+struct Cdp {
+    cmd: &'static str,
+    params: Value,
+}
+
+impl WebDriverCompatibleCommand for Cdp {
+    fn endpoint(
+        &self,
+        base: &url::Url,
+        session: Option<&str>,
+    ) -> Result<url::Url, url::ParseError> {
+        base.join(&format!(
+            "session/{}/goog/cdp/execute",
+            session.unwrap_or_default()
+        ))
+    }
+
+    fn method_and_body(&self, _: &url::Url) -> (http::Method, Option<String>) {
+        (
+            http::Method::POST,
+            Some(json!({"cmd": self.cmd, "params": self.params}).to_string()),
         )
     }
 }
@@ -131,14 +165,25 @@ impl Browser {
             .collect()
     }
 
+    async fn read_text(&self, css: &str) -> Result<String, fantoccini::error::CmdError> {
+        self.client.find(Locator::Css(css)).await?.text().await
+    }
+
+    /// The text of the first element matching `css`. Pages of running
+    /// evaluations reload themselves, so a read that meets the reload is
+    /// tried again.
     pub async fn text(&self, css: &str) -> String {
-        self.client
-            .find(Locator::Css(css))
-            .await
-            .unwrap()
-            .text()
-            .await
-            .unwrap()
+        let start = Instant::now();
+        loop {
+            match self.read_text(css).await {
+                Ok(t) => return t,
+                Err(e) if start.elapsed() < Duration::from_secs(5) => {
+                    let _ = e;
+                    tokio::time::sleep(Duration::from_millis(100)).await;
+                }
+                Err(e) => panic!("no text for {css}: {e}"),
+            }
+        }
     }
 
     /// Clicks something that navigates, and waits for the new page: the old
@@ -180,6 +225,114 @@ impl Browser {
             .unwrap();
     }
 
+    /// Runs a script in the page and returns what it returns.
+    /// Runs a script in the page and returns what it returns; tried again
+    /// when it meets a reload.
+    pub async fn run(&self, script: &str) -> Value {
+        let start = Instant::now();
+        loop {
+            match self.client.execute(script, vec![]).await {
+                Ok(v) => return v,
+                Err(e) if start.elapsed() < Duration::from_secs(5) => {
+                    let _ = e;
+                    tokio::time::sleep(Duration::from_millis(100)).await;
+                }
+                Err(e) => panic!("the script failed: {e}\n{script}"),
+            }
+        }
+    }
+
+    /// The text content of every element matching `css` (SVG text too,
+    /// which WebDriver's element text leaves out).
+    pub async fn texts(&self, css: &str) -> Vec<String> {
+        let script = format!(
+            "return Array.from(document.querySelectorAll({})).map(e => e.textContent);",
+            serde_json::to_string(css).unwrap()
+        );
+        let v = self.run(&script).await;
+        v.as_array()
+            .unwrap()
+            .iter()
+            .map(|t| t.as_str().unwrap_or_default().to_string())
+            .collect()
+    }
+
+    /// One attribute of every element matching `css`.
+    pub async fn attrs(&self, css: &str, name: &str) -> Vec<String> {
+        let script = format!(
+            "return Array.from(document.querySelectorAll({})).map(e => e.getAttribute({}));",
+            serde_json::to_string(css).unwrap(),
+            serde_json::to_string(name).unwrap()
+        );
+        let v = self.run(&script).await;
+        v.as_array()
+            .unwrap()
+            .iter()
+            .map(|t| t.as_str().unwrap_or_default().to_string())
+            .collect()
+    }
+
+    /// The page's address now.
+    pub async fn url(&self) -> String {
+        self.client.current_url().await.unwrap().to_string()
+    }
+
+    /// Where an element lies on the page (`getBoundingClientRect`).
+    pub async fn rect(&self, css: &str) -> Rect {
+        let script = format!(
+            "const r = document.querySelector({}).getBoundingClientRect(); \
+             return [r.left, r.right, r.top, r.bottom];",
+            serde_json::to_string(css).unwrap()
+        );
+        let v = self.run(&script).await;
+        let n = |i: usize| v[i].as_f64().unwrap();
+        Rect {
+            left: n(0),
+            right: n(1),
+            top: n(2),
+            bottom: n(3),
+        }
+    }
+
+    /// Sets the viewport's size, and waits until the page follows.
+    pub async fn set_width(&self, width: u32, height: u32) {
+        let params =
+            json!({"width": width, "height": height, "deviceScaleFactor": 1, "mobile": false});
+        self.client
+            .issue_cmd(Cdp {
+                cmd: "Emulation.setDeviceMetricsOverride",
+                params,
+            })
+            .await
+            .expect("chromedriver passes DevTools commands on");
+        let start = Instant::now();
+        while self.run("return window.innerWidth").await.as_u64() != Some(width as u64) {
+            assert!(
+                start.elapsed() < Duration::from_secs(5),
+                "the viewport never became {width} px wide"
+            );
+            tokio::time::sleep(Duration::from_millis(50)).await;
+        }
+    }
+
+    /// Screenshots of the whole page at 1280 and 1920 px wide, as
+    /// NAME-1280.png and NAME-1920.png; the viewport returns to 1280 px.
+    pub async fn screenshots(&self, name: &str) {
+        for width in [1280, 1920] {
+            self.set_width(width, 900).await;
+            let height = self
+                .run("return document.documentElement.scrollHeight")
+                .await
+                .as_u64()
+                .unwrap_or(900)
+                .clamp(600, 8000);
+            self.set_width(width, height as u32).await;
+            tokio::time::sleep(Duration::from_millis(100)).await;
+            self.screenshot(&format!("{name}-{width}")).await;
+        }
+        self.set_width(1280, 1600).await;
+    }
+
     /// The ids of the evaluation rows shown.
     pub async fn row_ids(&self) -> Vec<String> {
         let mut ids = Vec::new();
@@ -207,7 +360,7 @@ impl Browser {
         let state = status.attr("data-status").await?.unwrap_or_default();
         let done = match self.client.find(Locator::Css("#progress")).await {
             Ok(p) => p
-                .attr("value")
+                .attr("aria-valuenow")
                 .await?
                 .and_then(|v| v.parse().ok())
                 .unwrap_or(0),
