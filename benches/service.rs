@@ -108,10 +108,11 @@ async fn main() {
                 tags: Default::default(),
             },
             created_at: time::OffsetDateTime::now_utc(),
+            created_by: None,
         };
-        store.create_evaluation(&new).await.unwrap();
+        store.create_evaluation(&new).await.unwrap().unwrap();
         // Mark them finished so no worker picks them up.
-        store.cancel(id).await.unwrap();
+        store.cancel(id, None).await.unwrap();
     }
     println!(
         "seeded {EVALUATIONS} evaluations in {:.1} s",

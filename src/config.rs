@@ -4,20 +4,58 @@ use std::net::SocketAddr;
 use std::path::PathBuf;
 use std::time::Duration;
 
+use crate::http::access::{AuthMode, ReadAccess};
+
+/// Where the service keeps its data; shared by `serve` and `token`, which
+/// acts on the same database.
+#[derive(Debug, Clone, clap::Args)]
+pub struct DataArgs {
+    /// Folder for the database, uploads and cached teacher scores.
+    #[arg(
+        long,
+        global = true,
+        env = "PROCTOR_DATA_DIR",
+        default_value = "./proctor-data"
+    )]
+    pub data_dir: PathBuf,
+    /// Database URL; by default a SQLite file in the data dir.
+    #[arg(long, global = true, env = "PROCTOR_DATABASE_URL")]
+    pub database_url: Option<String>,
+}
+
+impl DataArgs {
+    pub fn database_url(&self) -> String {
+        self.database_url
+            .clone()
+            .unwrap_or_else(|| format!("sqlite://{}", self.data_dir.join("proctor.db").display()))
+    }
+}
+
 #[derive(Debug, Clone, clap::Args)]
 pub struct ServeArgs {
     /// Address to listen on (port 0 picks a free port; the address is logged).
     #[arg(long, env = "PROCTOR_LISTEN", default_value = "127.0.0.1:8080")]
     pub listen: SocketAddr,
-    /// Folder for the database, uploads and cached teacher scores.
-    #[arg(long, env = "PROCTOR_DATA_DIR", default_value = "./proctor-data")]
-    pub data_dir: PathBuf,
-    /// Database URL; by default a SQLite file in the data dir.
-    #[arg(long, env = "PROCTOR_DATABASE_URL")]
-    pub database_url: Option<String>,
+    #[command(flatten)]
+    pub data: DataArgs,
     /// Largest accepted upload, in bytes.
     #[arg(long, env = "PROCTOR_MAX_UPLOAD_BYTES", default_value_t = 2 << 30)]
     pub max_upload_bytes: u64,
+    /// The most bytes of models and sets kept in all; uploads past it are
+    /// refused with 507 (default: no limit beyond 1 GiB left free on the disk).
+    #[arg(long, env = "PROCTOR_MAX_STORED_BYTES")]
+    pub max_stored_bytes: Option<u64>,
+    /// Uploads that may stream at once; more are answered 503.
+    #[arg(long, env = "PROCTOR_MAX_UPLOADS", default_value_t = 16)]
+    pub max_uploads: usize,
+    /// Seconds an upload may send nothing before it is dropped with 408.
+    #[arg(
+        long,
+        env = "PROCTOR_UPLOAD_IDLE_TIMEOUT",
+        value_name = "SECONDS",
+        default_value_t = 30
+    )]
+    pub upload_idle_timeout: u64,
     /// Evaluations run at once.
     #[arg(long, env = "PROCTOR_WORKERS", default_value_t = 1)]
     pub workers: usize,
@@ -36,13 +74,49 @@ pub struct ServeArgs {
     /// Checks that may wait for a slot; past that, requests are answered 503.
     #[arg(long, env = "PROCTOR_CHECK_WAITING", default_value_t = 16)]
     pub check_waiting: usize,
+    /// Whether requests need a token (`proctor token create`); by default
+    /// required unless the service listens on a loopback address.
+    #[arg(long, env = "PROCTOR_AUTH", value_enum)]
+    pub auth: Option<AuthMode>,
+    /// Whether reads (GETs of the API and the dashboard) need a token.
+    #[arg(long, env = "PROCTOR_READ_ACCESS", value_enum, default_value = "token")]
+    pub read_access: ReadAccess,
+    /// A PEM certificate chain: the service then speaks HTTPS (with --tls-key).
+    #[arg(long, env = "PROCTOR_TLS_CERT", value_name = "FILE")]
+    pub tls_cert: Option<PathBuf>,
+    /// The PEM private key of --tls-cert.
+    #[arg(long, env = "PROCTOR_TLS_KEY", value_name = "FILE")]
+    pub tls_key: Option<PathBuf>,
+    /// Delete finished evaluations this many days after they were created
+    /// (default: keep all). Evaluations a baseline came from are kept.
+    #[arg(long, env = "PROCTOR_KEEP_DAYS", value_name = "DAYS")]
+    pub keep_days: Option<u64>,
+    /// Keep the cache of teacher scores under this many bytes, dropping the
+    /// longest unused first (default: no limit).
+    #[arg(long, env = "PROCTOR_CACHE_MAX_BYTES", value_name = "BYTES")]
+    pub cache_max_bytes: Option<u64>,
 }
 
 impl ServeArgs {
-    pub fn database_url(&self) -> String {
-        self.database_url
-            .clone()
-            .unwrap_or_else(|| format!("sqlite://{}", self.data_dir.join("proctor.db").display()))
+    /// The service's settings as `proctor serve` would take them from these
+    /// flags (and the `PROCTOR_*` environment), every other one at its default.
+    pub fn with_defaults(flags: &[&std::ffi::OsStr]) -> anyhow::Result<Self> {
+        #[derive(clap::Parser)]
+        struct Serve {
+            #[command(flatten)]
+            args: ServeArgs,
+        }
+        let argv = std::iter::once("serve".as_ref()).chain(flags.iter().copied());
+        Ok(<Serve as clap::Parser>::try_parse_from(argv)?.args)
+    }
+
+    /// `--auth`, or its default: required unless listening on loopback.
+    pub fn auth_mode(&self) -> AuthMode {
+        self.auth.unwrap_or(if self.listen.ip().is_loopback() {
+            AuthMode::Off
+        } else {
+            AuthMode::Required
+        })
     }
 
     pub fn eval_timeout(&self) -> Duration {

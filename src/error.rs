@@ -22,6 +22,13 @@ pub enum AppError {
         detail: String,
         field: Option<String>,
     },
+    /// No token, or one the service does not know (answered with
+    /// `WWW-Authenticate: Bearer`).
+    #[error("{0}")]
+    Unauthorized(String),
+    /// A token whose role or project does not allow this request.
+    #[error("{0}")]
+    Forbidden(String),
     /// An unknown id in the path.
     #[error("{0}")]
     NotFound(String),
@@ -30,6 +37,15 @@ pub enum AppError {
     Conflict(String),
     #[error("{0}")]
     TooLarge(String),
+    /// A JSON body sent without saying `content-type: application/json`.
+    #[error("{0}")]
+    UnsupportedMediaType(String),
+    /// A client too slow to finish its request (a stalled upload).
+    #[error("{0}")]
+    TooSlow(String),
+    /// Storing this would take the data past its limit or fill the disk.
+    #[error("{0}")]
+    InsufficientStorage(String),
     /// Well-formed but unusable input: not ONNX, a set that does not fit.
     #[error("{detail}")]
     Unprocessable {
@@ -73,9 +89,14 @@ impl AppError {
     pub fn status_code(&self) -> u16 {
         match self {
             AppError::BadRequest { .. } => 400,
+            AppError::Unauthorized(_) => 401,
+            AppError::Forbidden(_) => 403,
             AppError::NotFound(_) => 404,
             AppError::Conflict(_) => 409,
             AppError::TooLarge(_) => 413,
+            AppError::UnsupportedMediaType(_) => 415,
+            AppError::TooSlow(_) => 408,
+            AppError::InsufficientStorage(_) => 507,
             AppError::Unprocessable { .. } => 422,
             AppError::Unavailable { .. } => 503,
             AppError::Internal(_) => 500,
@@ -119,9 +140,14 @@ mod tests {
     fn every_error_maps_to_its_status_and_problem_type() {
         let table: Vec<(AppError, u16)> = vec![
             (AppError::bad_request("b", Some("limit")), 400),
+            (AppError::Unauthorized("who".into()), 401),
+            (AppError::Forbidden("no".into()), 403),
             (AppError::NotFound("n".into()), 404),
             (AppError::Conflict("c".into()), 409),
             (AppError::TooLarge("t".into()), 413),
+            (AppError::UnsupportedMediaType("m".into()), 415),
+            (AppError::TooSlow("s".into()), 408),
+            (AppError::InsufficientStorage("full".into()), 507),
             (AppError::unprocessable("u", Some("gates.x")), 422),
             (
                 AppError::Unavailable {

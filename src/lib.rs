@@ -30,5 +30,7 @@ pub mod server;
 pub mod service;
 /// All SQL and stored files.
 pub mod store;
+/// Counters and histograms for `GET /metrics`.
+pub mod telemetry;
 /// The dashboard: server-rendered pages under `/`.
 pub mod web;

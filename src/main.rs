@@ -27,6 +27,8 @@ enum Command {
     Report(proctor::cli::follow::ReportCommand),
     /// Make a candidate that passed every gate its project's baseline.
     Adopt(proctor::cli::adopt::AdoptArgs),
+    /// Make, list or revoke access tokens in the service's database.
+    Token(proctor::cli::token::TokenCommand),
     /// Run the bundled turbine-acoustics demo on a local service.
     Demo(proctor::cli::demo::DemoArgs),
     /// Run one engine task read from stdin (started by the service).
@@ -65,6 +67,10 @@ fn main() -> anyhow::Result<()> {
         Command::Adopt(args) => {
             let outcome = runtime()?.block_on(proctor::cli::adopt::run(&args));
             std::process::exit(exit::code("adopt", outcome))
+        }
+        Command::Token(args) => {
+            let outcome = runtime()?.block_on(proctor::cli::token::run(&args));
+            std::process::exit(exit::code("token", outcome))
         }
         Command::Demo(args) => {
             std::process::exit(runtime()?.block_on(proctor::cli::demo::run(&args))?)

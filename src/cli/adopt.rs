@@ -31,7 +31,7 @@ fn input(message: String) -> Exit {
 }
 
 pub async fn run(args: &AdoptArgs) -> Result<i32, Exit> {
-    let client = Client::new(args.server.base(), None);
+    let client = Client::new(&args.server, None)?;
     let e = client.evaluation(args.evaluation).await?;
     if e.status != Status::Succeeded {
         return Err(input(format!(

@@ -11,6 +11,7 @@ use sha2::{Digest, Sha256};
 use tokio::io::AsyncReadExt;
 use uuid::Uuid;
 
+use super::connection::ServerArgs;
 use crate::problem::Problem;
 use crate::report::Report;
 use crate::service::{EvaluationRequest, SetBaseline};
@@ -51,8 +52,36 @@ enum Repeat {
     Unprocessed,
 }
 
+/// Whether a request failed because the server's certificate is not trusted.
+fn refused_certificate(e: &reqwest::Error) -> bool {
+    let mut cause: Option<&(dyn std::error::Error + 'static)> = Some(e);
+    while let Some(c) = cause {
+        if c.downcast_ref::<tokio_rustls::rustls::Error>().is_some()
+            || c.to_string().contains("certificate")
+        {
+            return true;
+        }
+        cause = c.source();
+    }
+    false
+}
+
+/// A failed request in words, down to its root cause: reqwest's own text
+/// ("error sending request") hides whether it was DNS, a refused
+/// connection or a certificate the client does not trust.
 fn network(e: reqwest::Error) -> ClientError {
-    ClientError::Server(format!("cannot reach the server: {e}"))
+    let mut why = e.to_string();
+    let mut cause = std::error::Error::source(&e);
+    while let Some(c) = cause {
+        why = format!("{why}: {c}");
+        cause = c.source();
+    }
+    let hint = if why.contains("certificate") {
+        "; for a certificate a private authority signed, pass --ca-cert FILE"
+    } else {
+        ""
+    };
+    ClientError::Server(format!("cannot reach the server: {why}{hint}"))
 }
 
 /// The wait a 503's `Retry-After` asks for, within reason.
@@ -80,6 +109,11 @@ async fn checked(res: reqwest::Response) -> Result<String, ClientError> {
             format!("server answered {}: {}{field}", status.as_u16(), p.detail)
         }
         Err(_) => format!("server answered {}: {}", status.as_u16(), text.trim()),
+    };
+    let message = if status.as_u16() == 401 {
+        format!("{message}\n(pass a token with --token or the PROCTOR_TOKEN environment variable)")
+    } else {
+        message
     };
     if status.is_client_error() {
         Err(ClientError::Input(message))
@@ -128,18 +162,42 @@ impl Stored for DatasetRecord {
 }
 
 impl Client {
-    /// A client of the service at `base`; `limit`, the command's own time
-    /// limit, caps how long a request is retried.
-    pub fn new(base: &str, limit: Option<Duration>) -> Client {
-        let http = reqwest::Client::builder()
-            .connect_timeout(Duration::from_secs(10))
+    /// A client of the service `server` names; `limit`, the command's own
+    /// time limit, caps how long a request is retried.
+    pub fn new(server: &ServerArgs, limit: Option<Duration>) -> Result<Client, ClientError> {
+        let mut builder = reqwest::Client::builder().connect_timeout(Duration::from_secs(10));
+        if let Some(token) = &server.token {
+            let mut value =
+                reqwest::header::HeaderValue::from_str(&format!("Bearer {}", token.trim()))
+                    .map_err(|_| {
+                        ClientError::Input("the token holds characters no header may carry".into())
+                    })?;
+            // Kept out of debug output and of HTTP/2 header compression tables.
+            value.set_sensitive(true);
+            let mut headers = reqwest::header::HeaderMap::new();
+            headers.insert(reqwest::header::AUTHORIZATION, value);
+            builder = builder.default_headers(headers);
+        }
+        if let Some(path) = &server.ca_cert {
+            let pem = std::fs::read(path).map_err(|e| {
+                ClientError::Input(format!("cannot read --ca-cert {}: {e}", path.display()))
+            })?;
+            let cert = reqwest::Certificate::from_pem(&pem).map_err(|e| {
+                ClientError::Input(format!(
+                    "--ca-cert {} is no PEM certificate: {e}",
+                    path.display()
+                ))
+            })?;
+            builder = builder.add_root_certificate(cert);
+        }
+        let http = builder
             .build()
-            .expect("a client with default settings builds");
-        Client {
-            base: base.trim_end_matches('/').to_string(),
+            .map_err(|e| ClientError::Input(format!("cannot set up the HTTP client: {e}")))?;
+        Ok(Client {
+            base: server.base().to_string(),
             http,
             retry_for: limit.map_or(RETRY_FOR, |l| l.min(RETRY_FOR)),
-        }
+        })
     }
 
     fn url(&self, path: &str) -> String {
@@ -158,8 +216,13 @@ impl Client {
         loop {
             let outcome = build()?.send().await;
             let (transient, wait) = match &outcome {
+                // An untrusted certificate stays untrusted however often asked.
+                Err(e) if refused_certificate(e) => (false, None),
                 Err(e) if e.is_connect() => (true, None),
-                Err(e) => (repeat == Repeat::Freely && (e.is_timeout() || e.is_request()), None),
+                Err(e) => (
+                    repeat == Repeat::Freely && (e.is_timeout() || e.is_request()),
+                    None,
+                ),
                 Ok(res) => match res.status().as_u16() {
                     503 => (true, retry_after(res)),
                     502 | 504 => (repeat == Repeat::Freely, None),
@@ -182,7 +245,11 @@ impl Client {
 
     async fn get_text(&self, path: &str) -> Result<String, ClientError> {
         let url = self.url(path);
-        checked(self.send(|| Ok(self.http.get(&url)), Repeat::Freely).await?).await
+        checked(
+            self.send(|| Ok(self.http.get(&url)), Repeat::Freely)
+                .await?,
+        )
+        .await
     }
 
     /// The stored record with this content, if the server has one.

@@ -157,7 +157,7 @@ pub struct WaitCommand {
 }
 
 pub async fn run_wait(args: &WaitCommand) -> Result<i32, Exit> {
-    let client = Client::new(args.server.base(), args.wait.timeout);
+    let client = Client::new(&args.server, args.wait.timeout)?;
     let deadline = args.wait.timeout.map(|t| Instant::now() + t);
     let done = wait(&client, args.evaluation, deadline).await?;
     conclude(&client, &done, &args.outputs, args.server.base()).await
@@ -178,7 +178,7 @@ pub struct ReportCommand {
 }
 
 pub async fn run_report(args: &ReportCommand) -> Result<i32, Exit> {
-    let client = Client::new(args.server.base(), None);
+    let client = Client::new(&args.server, None)?;
     let e = client.evaluation(args.evaluation).await?;
     if !e.status.is_finished() {
         return Err(Exit {

@@ -19,7 +19,11 @@ pub fn junit(r: &Report) -> String {
             let status = if k.passed {
                 TestCaseStatus::success()
             } else {
-                let why = failure_text(k, r.settings.gates.confidence, r.dataset.class_names.as_deref());
+                let why = failure_text(
+                    k,
+                    r.settings.gates.confidence,
+                    r.dataset.class_names.as_deref(),
+                );
                 let mut s = TestCaseStatus::non_success(NonSuccessKind::Failure);
                 s.set_type("gate").set_message(why).set_description(format!(
                     "gate={} threshold={} judged={} estimate={}",

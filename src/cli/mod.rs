@@ -1,6 +1,7 @@
 //! The command-line side: `submit` (the CI gate), `wait` and `report`
 //! (coming back to an evaluation later), `adopt` (a passing candidate
-//! becomes its project's baseline), `demo` (the main job on bundled data),
+//! becomes its project's baseline), `token` (access tokens, on the
+//! service's own database), `demo` (the main job on bundled data),
 //! and what they share — the HTTP client, following an evaluation, and the
 //! renderings of a report (table, Markdown, JUnit XML, CSV).
 
@@ -14,3 +15,4 @@ pub mod junit;
 pub mod outputs;
 pub mod render;
 pub mod submit;
+pub mod token;

@@ -164,8 +164,7 @@ fn word<T: serde::de::DeserializeOwned>(text: &str, flag: &str, choices: &str) -
 fn apply_output_kinds(args: &SubmitArgs, body: &mut EvaluationRequest) -> Result<(), Exit> {
     for given in &args.output_kind {
         let (who, kind) = pair(given, "--output-kind")?;
-        let kind: OutputKindChoice =
-            word(&kind, "--output-kind", "auto, logits or probabilities")?;
+        let kind: OutputKindChoice = word(&kind, "--output-kind", "auto, logits or probabilities")?;
         match who.as_str() {
             "teacher" => body.output_kind.teacher = kind,
             "students" => body.output_kind.students = kind,
@@ -267,7 +266,7 @@ pub async fn run(args: &SubmitArgs) -> Result<i32, Exit> {
         .map(|n| pair(n, "--name"))
         .collect::<Result<_, _>>()?;
     let deadline = args.wait.timeout.map(|t| Instant::now() + t);
-    let client = Client::new(args.server.base(), args.wait.timeout);
+    let client = Client::new(&args.server, args.wait.timeout)?;
     let mut ids: HashMap<&str, Uuid> = HashMap::new();
     body.teacher = resolve::<ModelRecord>(&client, &args.teacher, &names).await?;
     ids.insert(&args.teacher, body.teacher);

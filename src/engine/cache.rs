@@ -1,6 +1,8 @@
 //! The teacher's bulk-pass scores, kept on disk by (teacher SHA-256, set
-//! SHA-256, output name), so that a later evaluation of new students against
-//! the same teacher and set does not run the teacher's bulk pass again.
+//! SHA-256, output name, engine and service versions), so that a later
+//! evaluation of new students against the same teacher and set does not run
+//! the teacher's bulk pass again, and an upgrade never reuses scores another
+//! engine computed. An entry that does not read is removed and computed anew.
 //!
 //! Scores are stored as an NPY float64 [N, C] array (readable with
 //! `numpy.load`) beside a small JSON file with the engine time per batch size
@@ -15,12 +17,15 @@ use std::time::Duration;
 
 use sha2::{Digest, Sha256};
 
+use super::environment::TRACT_VERSION;
 use super::error::{EngineError, EngineResult};
 use super::logits::Scores;
 use super::npy;
 
 pub struct TeacherCache {
     dir: PathBuf,
+    /// The engine and service versions, part of every key.
+    versions: String,
 }
 
 /// A cached entry: the scores, and the engine time at the batch size asked
@@ -32,13 +37,17 @@ pub struct Cached {
 
 impl TeacherCache {
     pub fn new(dir: impl Into<PathBuf>) -> Self {
-        TeacherCache { dir: dir.into() }
+        TeacherCache {
+            dir: dir.into(),
+            versions: format!("{TRACT_VERSION}\0{}", env!("CARGO_PKG_VERSION")),
+        }
     }
 
     fn stem(&self, teacher_sha: &str, set_sha: &str, output: Option<&str>) -> PathBuf {
-        let out = hex::encode(Sha256::digest(output.unwrap_or("").as_bytes()));
+        let key = format!("{}\0{}", output.unwrap_or(""), self.versions);
+        let key = hex::encode(Sha256::digest(key.as_bytes()));
         self.dir
-            .join(format!("{teacher_sha}-{set_sha}-{}", &out[..16]))
+            .join(format!("{teacher_sha}-{set_sha}-{}", &key[..16]))
     }
 
     pub fn get(
@@ -49,8 +58,22 @@ impl TeacherCache {
         batch: usize,
     ) -> Option<Cached> {
         let stem = self.stem(teacher_sha, set_sha, output);
-        let raw = read_f64_matrix(&stem.with_extension("npy")).ok()?;
+        let npy_path = stem.with_extension("npy");
+        let raw = match read_f64_matrix(&npy_path) {
+            Ok(raw) => raw,
+            Err(_) => {
+                // Missing, or unreadable: a corrupt entry is dropped so that
+                // this evaluation's scores replace it.
+                let _ = fs::remove_file(&npy_path);
+                let _ = fs::remove_file(stem.with_extension("json"));
+                return None;
+            }
+        };
         let times = read_times(&stem.with_extension("json"));
+        // A hit counts as a use, so that eviction drops the longest unused.
+        if let Ok(f) = fs::File::options().write(true).open(&npy_path) {
+            let _ = f.set_modified(std::time::SystemTime::now());
+        }
         Some(Cached {
             raw,
             engine_time: times.get(&batch).map(|s| Duration::from_secs_f64(*s)),
@@ -68,16 +91,41 @@ impl TeacherCache {
     ) -> EngineResult<()> {
         fs::create_dir_all(&self.dir).map_err(EngineError::io("creating the teacher cache"))?;
         let stem = self.stem(teacher_sha, set_sha, output);
-        let npy_path = stem.with_extension("npy");
-        if !npy_path.exists() {
-            write_atomic(&npy_path, &f64_matrix_bytes(raw))?;
-        }
+        write_atomic(&stem.with_extension("npy"), &f64_matrix_bytes(raw))?;
         let json_path = stem.with_extension("json");
         let mut times = read_times(&json_path);
         times.insert(batch, engine_time.as_secs_f64());
         let text = serde_json::to_vec(&times).expect("a map of numbers serializes");
         write_atomic(&json_path, &text)
     }
+}
+
+/// Removes the longest unused entries until the cache holds at most
+/// `max_bytes`; returns the bytes freed.
+pub fn evict(dir: &Path, max_bytes: u64) -> std::io::Result<u64> {
+    let mut entries = Vec::new();
+    let mut total = 0u64;
+    for e in fs::read_dir(dir)? {
+        let path = e?.path();
+        if path.extension().is_some_and(|x| x == "npy") {
+            let meta = fs::metadata(&path)?;
+            let times = path.with_extension("json");
+            let bytes = meta.len() + fs::metadata(&times).map_or(0, |m| m.len());
+            total += bytes;
+            entries.push((meta.modified()?, bytes, path));
+        }
+    }
+    entries.sort();
+    let mut freed = 0;
+    for (_, bytes, path) in entries {
+        if total - freed <= max_bytes {
+            break;
+        }
+        let _ = fs::remove_file(&path);
+        let _ = fs::remove_file(path.with_extension("json"));
+        freed += bytes;
+    }
+    Ok(freed)
 }
 
 fn read_times(path: &Path) -> BTreeMap<usize, f64> {
@@ -139,5 +187,50 @@ mod tests {
                 .is_none()
         );
         assert!(cache.get("aa", "bb", Some("probs"), 32).is_none());
+    }
+
+    #[test]
+    fn scores_another_engine_or_service_version_computed_are_no_hit() {
+        let dir = tempfile::tempdir().unwrap();
+        let older = TeacherCache {
+            dir: dir.path().into(),
+            versions: "0.21.0\u{0}0.0.9".into(),
+        };
+        let raw = Scores::from_rows(2, vec![1.0, 2.0]);
+        older
+            .put("aa", "bb", None, 8, &raw, Duration::from_millis(1))
+            .unwrap();
+        assert!(older.get("aa", "bb", None, 8).is_some());
+        assert!(
+            TeacherCache::new(dir.path())
+                .get("aa", "bb", None, 8)
+                .is_none()
+        );
+    }
+
+    #[test]
+    fn a_corrupt_entry_is_dropped_and_replaced_by_the_next_scores() {
+        let dir = tempfile::tempdir().unwrap();
+        let cache = TeacherCache::new(dir.path());
+        let raw = Scores::from_rows(2, vec![1.0, 2.0]);
+        cache
+            .put("aa", "bb", None, 8, &raw, Duration::from_millis(1))
+            .unwrap();
+        let npy = std::fs::read_dir(dir.path())
+            .unwrap()
+            .map(|e| e.unwrap().path())
+            .find(|p| p.extension().is_some_and(|e| e == "npy"))
+            .unwrap();
+        std::fs::write(&npy, b"not an array").unwrap();
+        assert!(
+            cache.get("aa", "bb", None, 8).is_none(),
+            "a corrupt entry is no hit"
+        );
+        assert!(!npy.exists(), "and it is removed");
+        let fresh = Scores::from_rows(2, vec![3.0, 4.0]);
+        cache
+            .put("aa", "bb", None, 8, &fresh, Duration::from_millis(2))
+            .unwrap();
+        assert_eq!(cache.get("aa", "bb", None, 8).unwrap().raw, fresh);
     }
 }

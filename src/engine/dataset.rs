@@ -28,6 +28,12 @@ pub const MAX_SLICES: usize = 1000;
 /// Most arrays an `.npz` may hold.
 pub const MAX_ARRAYS: usize = 64;
 
+/// The largest compression ratio of an archive's arrays, past a first
+/// allowance that small sets of zeros may use (common practice against
+/// decompression bombs; deflate itself reaches about 1000:1).
+pub const MAX_RATIO: u64 = 200;
+const RATIO_FREE_BYTES: u64 = 64 << 20;
+
 /// Whether an array of this name may feed a model input (the set's own
 /// arrays, such as the labels, never do).
 pub fn is_model_input(name: Option<&str>) -> bool {
@@ -56,6 +62,12 @@ pub struct DatasetInfo {
     /// Recorded so that a new evaluation's labels are checked against the
     /// models' class count without reading the set again.
     pub largest_label: Option<LargestLabel>,
+}
+
+impl Member {
+    fn label(&self) -> &str {
+        self.name.as_deref().unwrap_or("the array")
+    }
 }
 
 /// Where one array's bytes live inside the file.
@@ -125,6 +137,53 @@ impl EvalSet {
         set.class_names = set.read_class_names()?;
         set.slices = set.read_slices()?;
         Ok(set)
+    }
+
+    /// The upload check of an archive's contents: deflated arrays must be
+    /// modest in their compression ratio (a few hundred bytes may not
+    /// promise gigabytes), and every array must hold exactly the bytes its
+    /// header promises, read to the end — not only as the archive claims.
+    pub fn verify(&self) -> EngineResult<()> {
+        let compressed: u64 = self.members.iter().map(|m| m.stored_len).sum();
+        let promised: u64 = self
+            .members
+            .iter()
+            .map(|m| promised_bytes(&m.header).unwrap_or(u64::MAX))
+            .fold(0u64, u64::saturating_add);
+        if promised > RATIO_FREE_BYTES && promised / compressed.max(1) > MAX_RATIO {
+            return Err(invalid(format!(
+                "the archive's {compressed} bytes promise {promised} bytes of arrays, a \
+                 compression ratio above {MAX_RATIO}:1; save the set with np.savez"
+            )));
+        }
+        for (ix, m) in self.members.iter().enumerate() {
+            let mut stream = self.stream(ix)?;
+            let want = promised_bytes(&m.header).unwrap_or(u64::MAX);
+            // One byte past the promise is enough to know it holds more.
+            let got = std::io::copy(
+                &mut (&mut stream.reader).take(want.saturating_add(1)),
+                &mut std::io::sink(),
+            )
+            .map_err(|e| {
+                invalid(format!(
+                    "array '{}' cannot be read to its end: {e}",
+                    m.label()
+                ))
+            })?;
+            if got > want {
+                return Err(invalid(format!(
+                    "array '{}' holds more data than the {want} bytes its header promises",
+                    m.label()
+                )));
+            }
+            if got < want {
+                return Err(invalid(format!(
+                    "array '{}' holds {got} bytes of data but its header promises {want}",
+                    m.label()
+                )));
+            }
+        }
+        Ok(())
     }
 
     /// Strings only in the set's own arrays: a string model input cannot be fed.
@@ -435,16 +494,20 @@ fn npz_members(path: &Path) -> EngineResult<Vec<Member>> {
         .collect()
 }
 
-/// Refuses arrays whose header promises more data than the file holds, so a
-/// truncated upload fails at once rather than mid-evaluation.
-fn check_size(header: &Header, available: u64, name: Option<&str>) -> EngineResult<()> {
-    let want = header
+/// The data bytes an NPY header promises; `None` when they overflow.
+fn promised_bytes(header: &Header) -> Option<u64> {
+    header
         .shape
         .iter()
         .try_fold(header.dtype.size() as u64, |acc, &d| {
             acc.checked_mul(d as u64)
-        });
-    match want {
+        })
+}
+
+/// Refuses arrays whose header promises more data than the file holds, so a
+/// truncated upload fails at once rather than mid-evaluation.
+fn check_size(header: &Header, available: u64, name: Option<&str>) -> EngineResult<()> {
+    match promised_bytes(header) {
         Some(w) if w <= available => Ok(()),
         _ => Err(invalid(format!(
             "array '{}' is truncated: its header promises more data than the file holds",

@@ -48,7 +48,10 @@ pub fn inspect_model(path: &Path) -> EngineResult<model::ModelInfo> {
     Ok(m.info)
 }
 
-/// The upload inspection of an evaluation set: headers, lengths and labels.
+/// The upload inspection of an evaluation set: headers, lengths, labels,
+/// and every array read to its end.
 pub fn inspect_dataset(path: &Path) -> EngineResult<dataset::DatasetInfo> {
-    Ok(dataset::EvalSet::open(path)?.info())
+    let set = dataset::EvalSet::open(path)?;
+    set.verify()?;
+    Ok(set.info())
 }

@@ -6,6 +6,7 @@ use axum::extract::{Path, State};
 use axum::http::{HeaderMap, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 
+use super::access::Who;
 use super::extract::{QueryMap, path_id};
 use crate::error::AppError;
 use crate::service::{App, Uploaded};
@@ -28,6 +29,23 @@ fn upload_name(q: &QueryMap) -> Result<String, AppError> {
     Ok(name)
 }
 
+/// Uploads are raw bytes; a form's text/plain or urlencoded body is not one
+/// (and is what a page elsewhere could send without asking first).
+fn raw_upload(headers: &HeaderMap) -> Result<(), AppError> {
+    let kind = headers
+        .get(header::CONTENT_TYPE)
+        .and_then(|v| v.to_str().ok())
+        .unwrap_or("");
+    let essence = kind.split(';').next().unwrap_or("").trim();
+    if matches!(essence, "application/octet-stream" | "application/zip") {
+        Ok(())
+    } else {
+        Err(AppError::UnsupportedMediaType(format!(
+            "send the file as content-type application/octet-stream, not '{kind}'"
+        )))
+    }
+}
+
 /// 201 with a Location for a new record, 200 for a file already stored.
 fn uploaded<T: serde::Serialize>(up: Uploaded<T>, location: String) -> Response {
     let status = if up.created {
@@ -40,15 +58,18 @@ fn uploaded<T: serde::Serialize>(up: Uploaded<T>, location: String) -> Response 
 
 pub(super) async fn upload_model(
     State(app): State<App>,
+    Who(caller): Who,
     q: QueryMap,
     headers: HeaderMap,
     body: Body,
 ) -> Result<Response, AppError> {
+    raw_upload(&headers)?;
     let up = app
         .upload::<ModelRecord, _, _>(
             upload_name(&q)?,
             body.into_data_stream(),
             declared_length(&headers),
+            &caller,
         )
         .await?;
     let location = format!("/v1/models/{}", up.record.id);
@@ -78,15 +99,18 @@ pub(super) async fn list_models(State(app): State<App>, q: QueryMap) -> Result<R
 
 pub(super) async fn upload_dataset(
     State(app): State<App>,
+    Who(caller): Who,
     q: QueryMap,
     headers: HeaderMap,
     body: Body,
 ) -> Result<Response, AppError> {
+    raw_upload(&headers)?;
     let up = app
         .upload::<DatasetRecord, _, _>(
             upload_name(&q)?,
             body.into_data_stream(),
             declared_length(&headers),
+            &caller,
         )
         .await?;
     let location = format!("/v1/datasets/{}", up.record.id);
@@ -115,4 +139,23 @@ pub(super) async fn list_datasets(
         .list_datasets(q.sha256()?.as_deref(), q.limit()?, q.uuid("cursor")?)
         .await?;
     Ok(Json(page).into_response())
+}
+
+pub(super) async fn delete_model(
+    State(app): State<App>,
+    Who(caller): Who,
+    Path(id): Path<String>,
+) -> Result<Response, AppError> {
+    app.delete_model(path_id(&id, "model")?, &caller).await?;
+    Ok(StatusCode::NO_CONTENT.into_response())
+}
+
+pub(super) async fn delete_dataset(
+    State(app): State<App>,
+    Who(caller): Who,
+    Path(id): Path<String>,
+) -> Result<Response, AppError> {
+    app.delete_dataset(path_id(&id, "evaluation set")?, &caller)
+        .await?;
+    Ok(StatusCode::NO_CONTENT.into_response())
 }

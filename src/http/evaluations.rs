@@ -5,6 +5,7 @@ use axum::extract::{Path, State};
 use axum::http::{HeaderMap, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 
+use super::access::Who;
 use super::extract::{JsonBody, QueryMap, path_id};
 use crate::error::AppError;
 use crate::report::Verdict;
@@ -13,9 +14,10 @@ use crate::store::{EvaluationFilter, Status};
 
 pub(super) async fn create(
     State(app): State<App>,
+    Who(caller): Who,
     JsonBody(req): JsonBody<EvaluationRequest>,
 ) -> Result<Response, AppError> {
-    let record = app.create_evaluation(req).await?;
+    let record = app.create_evaluation(req, &caller).await?;
     let location = format!("/v1/evaluations/{}", record.id);
     Ok((
         StatusCode::ACCEPTED,
@@ -40,10 +42,7 @@ pub(super) async fn report(
     headers: HeaderMap,
 ) -> Result<Response, AppError> {
     let id = path_id(&id, "evaluation")?;
-    let wants_csv = headers
-        .get(header::ACCEPT)
-        .and_then(|v| v.to_str().ok())
-        .is_some_and(|a| a.contains("text/csv"));
+    let wants_csv = super::negotiate::prefers_csv(&headers);
     if wants_csv {
         let csv = app.report_csv(id).await?;
         return Ok(([(header::CONTENT_TYPE, "text/csv; charset=utf-8")], csv).into_response());
@@ -61,9 +60,13 @@ pub(super) async fn timings(
 
 pub(super) async fn cancel(
     State(app): State<App>,
+    Who(caller): Who,
     Path(id): Path<String>,
 ) -> Result<Response, AppError> {
-    Ok(Json(app.cancel_evaluation(path_id(&id, "evaluation")?).await?).into_response())
+    let record = app
+        .cancel_evaluation(path_id(&id, "evaluation")?, &caller)
+        .await?;
+    Ok(Json(record).into_response())
 }
 
 /// Reads the list filters; `verdict` and `tag=key:value` serve the dashboard.

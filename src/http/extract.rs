@@ -23,6 +23,19 @@ impl<S: Send + Sync, T: DeserializeOwned> FromRequest<S> for JsonBody<T> {
     type Rejection = AppError;
 
     async fn from_request(req: Request<Body>, _: &S) -> Result<Self, AppError> {
+        let kind = req
+            .headers()
+            .get(axum::http::header::CONTENT_TYPE)
+            .and_then(|v| v.to_str().ok())
+            .unwrap_or("");
+        // A form's text/plain body is what a page elsewhere can send
+        // without asking first; JSON must say it is JSON.
+        let essence = kind.split(';').next().unwrap_or("").trim();
+        if !essence.eq_ignore_ascii_case("application/json") {
+            return Err(AppError::UnsupportedMediaType(format!(
+                "send the body as content-type application/json, not '{kind}'"
+            )));
+        }
         let bytes = axum::body::to_bytes(req.into_body(), MAX_JSON_BYTES)
             .await
             .map_err(|_| {

@@ -13,17 +13,6 @@ pub(super) async fn healthz() -> Response {
 }
 
 pub(super) async fn readyz(State(app): State<App>) -> Result<Response, AppError> {
-    if !app.store.ping().await {
-        return Err(AppError::Unavailable {
-            detail: "the database does not answer".into(),
-            retry_after: None,
-        });
-    }
-    if app.workers.alive() == 0 {
-        return Err(AppError::Unavailable {
-            detail: "no evaluation worker is running".into(),
-            retry_after: None,
-        });
-    }
+    app.readiness().await?;
     Ok(Json(json!({"status": "ready"})).into_response())
 }

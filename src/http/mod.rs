@@ -1,13 +1,17 @@
 //! The HTTP edge (api.md): routes, layers, error rendering. Handlers only
 //! translate between HTTP and the service layer.
 
+pub mod access;
 mod catalog;
+pub mod edge;
 mod evaluations;
 pub(crate) use evaluations::list_query;
 pub mod errors;
 pub(crate) mod extract;
 mod health;
+mod negotiate;
 mod projects;
+mod telemetry;
 
 use std::time::Duration;
 
@@ -17,7 +21,7 @@ use axum::response::IntoResponse;
 use axum::routing::{MethodRouter, delete, get, post, put};
 use tower::ServiceBuilder;
 use tower_http::compression::CompressionLayer;
-use tower_http::request_id::{MakeRequestUuid, PropagateRequestIdLayer, SetRequestIdLayer};
+use tower_http::request_id::PropagateRequestIdLayer;
 use tower_http::timeout::TimeoutLayer;
 use tower_http::trace::TraceLayer;
 
@@ -52,6 +56,12 @@ fn table() -> Vec<(&'static str, &'static str, Kind, MethodRouter<App>)> {
         ("get", "/v1/models", Bounded, get(catalog::list_models)),
         ("get", "/v1/models/{id}", Bounded, get(catalog::get_model)),
         (
+            "delete",
+            "/v1/models/{id}",
+            Bounded,
+            delete(catalog::delete_model),
+        ),
+        (
             "post",
             "/v1/datasets",
             Checked,
@@ -63,6 +73,12 @@ fn table() -> Vec<(&'static str, &'static str, Kind, MethodRouter<App>)> {
             "/v1/datasets/{id}",
             Bounded,
             get(catalog::get_dataset),
+        ),
+        (
+            "delete",
+            "/v1/datasets/{id}",
+            Bounded,
+            delete(catalog::delete_dataset),
         ),
         (
             "post",
@@ -106,6 +122,7 @@ fn table() -> Vec<(&'static str, &'static str, Kind, MethodRouter<App>)> {
         ("get", "/healthz", Bounded, get(health::healthz)),
         ("get", "/readyz", Bounded, get(health::readyz)),
         ("get", "/openapi.yaml", Bounded, get(openapi)),
+        ("get", "/metrics", Bounded, get(telemetry::metrics)),
         ("get", "/", Bounded, get(crate::web::evaluations)),
         (
             "get",
@@ -113,8 +130,19 @@ fn table() -> Vec<(&'static str, &'static str, Kind, MethodRouter<App>)> {
             Bounded,
             get(crate::web::evaluation),
         ),
+        (
+            "post",
+            "/evaluations/{id}/cancel",
+            Bounded,
+            post(crate::web::cancel),
+        ),
         ("get", "/teachers/{id}", Bounded, get(crate::web::teacher)),
+        ("get", "/projects/{name}", Bounded, get(crate::web::project)),
+        ("get", "/compare", Bounded, get(crate::web::compare)),
         ("get", "/assets/style.css", Bounded, get(crate::web::style)),
+        ("get", "/signin", Bounded, get(crate::web::signin)),
+        ("post", "/signin", Bounded, post(crate::web::sign_in)),
+        ("post", "/signout", Bounded, post(crate::web::sign_out)),
     ]
 }
 
@@ -123,7 +151,7 @@ pub fn routes() -> Vec<(&'static str, &'static str)> {
     table().into_iter().map(|(m, p, _, _)| (m, p)).collect()
 }
 
-pub fn router(app: App) -> Router {
+pub fn router(app: App, access: access::AccessConfig) -> Router {
     let (mut checked, mut bounded) = (Router::new(), Router::new());
     for (_, path, kind, handler) in table() {
         match kind {
@@ -137,19 +165,38 @@ pub fn router(app: App) -> Router {
             REQUEST_TIMEOUT,
         ))
         .layer(CompressionLayer::new());
-    let request_id = HeaderName::from_static("x-request-id");
-    checked.merge(bounded).with_state(app).layer(
+    let header = |req: &Request<_>, name: &HeaderName| {
+        req.headers()
+            .get(name)
+            .and_then(|v| v.to_str().ok())
+            .unwrap_or("-")
+            .to_string()
+    };
+    checked.merge(bounded).with_state(app.clone()).layer(
         ServiceBuilder::new()
-            .layer(SetRequestIdLayer::new(request_id.clone(), MakeRequestUuid))
-            .layer(TraceLayer::new_for_http().make_span_with(|req: &Request<_>| {
-                let id = req
-                    .headers()
-                    .get("x-request-id")
-                    .and_then(|v| v.to_str().ok())
-                    .unwrap_or("-");
-                tracing::info_span!("request", request_id = %id, method = %req.method(), path = %req.uri().path())
-            }))
-            .layer(PropagateRequestIdLayer::new(request_id))
-            .layer(axum::middleware::from_fn(errors::ensure_problem_json)),
+            .map_request(edge::request_id)
+            .layer(
+                TraceLayer::new_for_http().make_span_with(move |req: &Request<_>| {
+                    tracing::info_span!(
+                        "request",
+                        request_id = %header(req, &edge::REQUEST_ID),
+                        client_request_id = %header(req, &edge::CLIENT_REQUEST_ID),
+                        method = %req.method(),
+                        path = %req.uri().path()
+                    )
+                }),
+            )
+            .layer(PropagateRequestIdLayer::new(edge::REQUEST_ID))
+            .layer(axum::middleware::from_fn(edge::security_headers))
+            .layer(axum::middleware::from_fn(errors::ensure_problem_json))
+            .layer(axum::middleware::from_fn_with_state(
+                app.clone(),
+                telemetry::count,
+            ))
+            .layer(axum::middleware::from_fn_with_state(
+                (app, access),
+                access::identify,
+            ))
+            .layer(axum::Extension(access)),
     )
 }

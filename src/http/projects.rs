@@ -4,6 +4,7 @@ use axum::Json;
 use axum::extract::{Path, State};
 use axum::response::{IntoResponse, Response};
 
+use super::access::Who;
 use super::extract::{JsonBody, QueryMap};
 use crate::error::AppError;
 use crate::service::{App, SetBaseline};
@@ -22,8 +23,9 @@ pub(super) async fn get(
 
 pub(super) async fn set_baseline(
     State(app): State<App>,
+    Who(caller): Who,
     Path(name): Path<String>,
     JsonBody(body): JsonBody<SetBaseline>,
 ) -> Result<Response, AppError> {
-    Ok(Json(app.set_baseline(&name, body, None).await?).into_response())
+    Ok(Json(app.set_baseline(&name, body, &caller).await?).into_response())
 }

@@ -16,10 +16,12 @@ use crate::error::AppError;
 use crate::problem::Problem;
 use crate::sandbox::{Sandbox, SandboxError};
 use crate::store::{EvaluationRecord, Progress, Status, Store, StoreError};
+use crate::telemetry::Telemetry;
 
 struct Inner {
     store: Store,
     sandbox: Sandbox,
+    telemetry: Arc<Telemetry>,
     /// Who claims, as written in `claimed_by`: this process and the worker.
     instance: Uuid,
     wake: Notify,
@@ -35,8 +37,16 @@ pub struct Workers {
     inner: Arc<Inner>,
 }
 
-/// Decrements the live-worker count however the worker task ends.
+/// Counts a worker as alive for as long as it is held: dropped however the
+/// worker task ends, a panic included, so that readiness stays true.
 struct Alive<'a>(&'a AtomicUsize);
+
+impl<'a> Alive<'a> {
+    fn count(alive: &'a AtomicUsize) -> Alive<'a> {
+        alive.fetch_add(1, Ordering::Relaxed);
+        Alive(alive)
+    }
+}
 
 impl Drop for Alive<'_> {
     fn drop(&mut self) {
@@ -50,6 +60,7 @@ impl Workers {
     pub async fn start(
         store: Store,
         sandbox: Sandbox,
+        telemetry: Arc<Telemetry>,
         count: usize,
     ) -> Result<Workers, StoreError> {
         let (requeued, failed) = store.recover_interrupted().await?;
@@ -63,6 +74,7 @@ impl Workers {
         let inner = Arc::new(Inner {
             store,
             sandbox,
+            telemetry,
             instance: Uuid::now_v7(),
             wake: Notify::new(),
             running: Mutex::new(HashMap::new()),
@@ -113,8 +125,7 @@ impl Inner {
 }
 
 async fn worker(inner: Arc<Inner>, n: usize) {
-    inner.alive.fetch_add(1, Ordering::Relaxed);
-    let _alive = Alive(&inner.alive);
+    let _alive = Alive::count(&inner.alive);
     let owner = format!("{}/{n}", inner.instance);
     while !inner.shutdown.is_cancelled() {
         match inner.store.claim_next(&owner).await {
@@ -137,6 +148,7 @@ async fn worker(inner: Arc<Inner>, n: usize) {
 async fn run_one(inner: &Arc<Inner>, owner: &str, record: EvaluationRecord) {
     let id = record.id;
     let span = tracing::info_span!("evaluation", %id, attempt = record.attempts);
+    inner.sandbox.hold_before_start().await;
     let token = inner.shutdown.child_token();
     inner.running().insert(id, token.clone());
     let outcome = execute(inner, owner, &record, &token)
@@ -193,6 +205,7 @@ async fn execute(
             }
         })
     };
+    let started = std::time::Instant::now();
     let ran = inner
         .sandbox
         .run_evaluation(&job, token, |stage, done, total| {
@@ -201,8 +214,12 @@ async fn execute(
         .await;
     drop(tx);
     let _ = writer.await;
+    let seconds = started.elapsed().as_secs_f64();
     match ran {
         Ok(done) => {
+            inner
+                .telemetry
+                .evaluation("succeeded", seconds, Some(&done.report.timings));
             if !store
                 .finish_succeeded(id, owner, &done.report, &done.rounds)
                 .await?
@@ -214,8 +231,12 @@ async fn execute(
             tracing::info!("shutting down: the evaluation goes back to the queue");
             store.requeue(id, owner).await?;
         }
-        Err(SandboxError::Canceled) => tracing::info!("canceled"),
+        Err(SandboxError::Canceled) => {
+            inner.telemetry.evaluation("canceled", seconds, None);
+            tracing::info!("canceled");
+        }
         Err(e) => {
+            inner.telemetry.evaluation("failed", seconds, None);
             let error = AppError::from(e);
             if error.status_code() >= 500 {
                 tracing::error!(cause = %error, "the evaluation failed on our side");
@@ -225,4 +246,24 @@ async fn execute(
         }
     }
     Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[tokio::test]
+    async fn a_worker_task_that_panics_is_no_longer_counted_alive() {
+        let alive = Arc::new(AtomicUsize::new(0));
+        let counted = alive.clone();
+        let (started, ready) = tokio::sync::oneshot::channel();
+        let task = tokio::spawn(async move {
+            let _alive = Alive::count(&counted);
+            started.send(()).unwrap();
+            panic!("a worker's bug");
+        });
+        ready.await.unwrap();
+        assert!(task.await.unwrap_err().is_panic());
+        assert_eq!(alive.load(Ordering::Relaxed), 0);
+    }
 }

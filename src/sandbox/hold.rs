@@ -38,6 +38,18 @@ impl Hold {
     }
 }
 
+/// The parent's side, for the one point outside the child: with the hold
+/// at `waiting`, a worker that has claimed an evaluation waits here before
+/// anything else, so that a test can cancel in that gap.
+pub(super) async fn before_start(hold: Option<&Hold>) {
+    let Some(hold) = hold.filter(|h| cfg!(debug_assertions) && h.stage == Stage::Waiting) else {
+        return;
+    };
+    while !tokio::fs::try_exists(&hold.release).await.unwrap_or(true) {
+        tokio::time::sleep(Duration::from_millis(20)).await;
+    }
+}
+
 /// The child's side: blocks the first progress report of the held stage
 /// until the release file exists.
 pub(super) struct Holding {

@@ -144,6 +144,12 @@ impl Sandbox {
         }
     }
 
+    /// Test builds only: holds a claimed evaluation before its child starts
+    /// when asked to hold at `waiting` (see `hold`).
+    pub async fn hold_before_start(&self) {
+        hold::before_start(self.inner.config.hold.as_ref()).await;
+    }
+
     /// Checks waiting for a slot now (for readiness and tests).
     pub fn checks_waiting(&self) -> usize {
         self.inner.waiting.load(Ordering::Relaxed)
@@ -211,6 +217,10 @@ fn answer(
                 "the engine ran out of memory on this input (the limit is {limit})"
             )))
         }
+        Ended::Died(death) if death.out_of_cpu_time() => Err(SandboxError::refused(format!(
+            "{what} used more CPU time than its limit of {} s on every core",
+            limits.wall_time.as_secs()
+        ))),
         Ended::Died(death) => Err(SandboxError::Fault(describe(&death))),
     }
 }

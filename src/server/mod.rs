@@ -1,10 +1,18 @@
-//! Starting and stopping the service: store, queue, HTTP, signals.
+//! Starting and stopping the service: the data dir's lock, the store, the
+//! sandbox and workers, housekeeping, HTTP(S), and signals. A stop ends the
+//! HTTP side and the workers at once, each within its own deadline.
+
+mod accept;
+mod tls;
 
 use std::net::SocketAddr;
 
 use anyhow::Context;
 use tokio::task::JoinHandle;
 use tokio_util::sync::CancellationToken;
+
+use crate::http::access::{AccessConfig, AuthMode};
+use crate::service::Housekeeping;
 
 use crate::config::ServeArgs;
 use crate::engine::Options;
@@ -19,14 +27,62 @@ const CHECK_TIME: std::time::Duration = std::time::Duration::from_secs(300);
 /// A started service: its address, and a way to stop it cleanly.
 pub struct Running {
     pub addr: SocketAddr,
+    /// Whether it speaks HTTPS.
+    pub tls: bool,
     stop: CancellationToken,
     task: JoinHandle<anyhow::Result<()>>,
 }
 
+impl Running {
+    /// The address clients use, e.g. `https://127.0.0.1:8443`.
+    pub fn url(&self) -> String {
+        let scheme = if self.tls { "https" } else { "http" };
+        format!("{scheme}://{}", self.addr)
+    }
+}
+
+/// Takes the data dir's lock for this process's life: a second service on
+/// the same data dir would sweep the first one's uploads in progress and
+/// run its evaluations twice.
+fn lock_data_dir(dir: &std::path::Path) -> anyhow::Result<std::fs::File> {
+    let path = dir.join("proctor.lock");
+    let file = std::fs::OpenOptions::new()
+        .create(true)
+        .truncate(false)
+        .write(true)
+        .open(&path)
+        .with_context(|| format!("opening {}", path.display()))?;
+    match file.try_lock() {
+        Ok(()) => Ok(file),
+        Err(std::fs::TryLockError::WouldBlock) => anyhow::bail!(
+            "another Proctor process is using the data dir {}; stop it first, or give this one \
+             its own --data-dir",
+            dir.display()
+        ),
+        Err(std::fs::TryLockError::Error(e)) => {
+            Err(e).with_context(|| format!("locking {}", path.display()))
+        }
+    }
+}
+
 pub async fn start(args: &ServeArgs) -> anyhow::Result<Running> {
-    std::fs::create_dir_all(&args.data_dir)
-        .with_context(|| format!("creating the data dir {}", args.data_dir.display()))?;
-    let store = Store::open(&args.database_url(), &args.data_dir)
+    std::fs::create_dir_all(&args.data.data_dir)
+        .with_context(|| format!("creating the data dir {}", args.data.data_dir.display()))?;
+    let lock = lock_data_dir(&args.data.data_dir)?;
+    let tls = match (&args.tls_cert, &args.tls_key) {
+        (Some(cert), Some(key)) => Some(tls::acceptor(cert, key)?),
+        (None, None) => None,
+        _ => anyhow::bail!("--tls-cert and --tls-key go together"),
+    };
+    let access = AccessConfig {
+        auth: args.auth_mode(),
+        reads: args.read_access,
+        tls: tls.is_some(),
+    };
+    if access.auth == AuthMode::Off && !args.listen.ip().is_loopback() {
+        tracing::warn!(listen = %args.listen, "access control is off on a non-loopback address; only localhost host names are served");
+    }
+    let store = Store::open(&args.data.database_url(), &args.data.data_dir)
         .await
         .context("opening the store")?;
     let limits = Limits {
@@ -47,37 +103,61 @@ pub async fn start(args: &ServeArgs) -> anyhow::Result<Running> {
             teacher_cache: Some(store.blobs.teacher_scores_dir()),
             bulk_threads: args.bulk_threads,
         },
-        hold: Hold::from_env(&args.data_dir),
+        hold: Hold::from_env(&args.data.data_dir),
     });
-    let workers = Workers::start(store.clone(), sandbox.clone(), args.workers)
-        .await
-        .context("starting the workers")?;
+    let telemetry = std::sync::Arc::new(crate::telemetry::Telemetry::default());
+    let workers = Workers::start(
+        store.clone(),
+        sandbox.clone(),
+        telemetry.clone(),
+        args.workers,
+    )
+    .await
+    .context("starting the workers")?;
     let app = App {
         store: store.clone(),
         sandbox,
         workers: workers.clone(),
         config: ServiceConfig {
             max_upload_bytes: args.max_upload_bytes,
+            max_stored_bytes: args.max_stored_bytes,
+            upload_idle: std::time::Duration::from_secs(args.upload_idle_timeout.max(1)),
         },
+        uploads: std::sync::Arc::new(tokio::sync::Semaphore::new(args.max_uploads.max(1))),
+        telemetry,
     };
     let listener = tokio::net::TcpListener::bind(args.listen)
         .await
         .with_context(|| format!("listening on {}", args.listen))?;
     let addr = listener.local_addr()?;
-    tracing::info!(%addr, data_dir = %args.data_dir.display(), "serving");
+    tracing::info!(%addr, data_dir = %args.data.data_dir.display(), auth = ?access.auth, "serving");
     let stop = CancellationToken::new();
+    let housekeeping = Housekeeping {
+        keep: args
+            .keep_days
+            .map(|d| std::time::Duration::from_secs(d * 86_400)),
+        cache_max_bytes: args.cache_max_bytes,
+    };
+    let tidy = tokio::spawn(app.clone().keep_tidy(housekeeping, stop.clone()));
+    let router = crate::http::router(app, access);
+    let http = tokio::spawn(accept::serve(listener, router, tls.clone(), stop.clone()));
     let stopped = stop.clone();
     let task = tokio::spawn(async move {
-        axum::serve(listener, crate::http::router(app))
-            .with_graceful_shutdown(stopped.cancelled_owned())
-            .await
-            .context("serving HTTP")?;
+        stopped.cancelled().await;
         tracing::info!("stopping: running evaluations go back to the queue");
-        workers.shutdown().await;
+        // Both sides stop at once: the workers need not wait for uploads.
+        let (served, _, _) = tokio::join!(http, workers.shutdown(), tidy);
+        served.context("the HTTP task")?;
         store.close().await;
+        drop(lock);
         Ok(())
     });
-    Ok(Running { addr, stop, task })
+    Ok(Running {
+        addr,
+        tls: tls.is_some(),
+        stop,
+        task,
+    })
 }
 
 impl Running {
@@ -97,7 +177,7 @@ impl Running {
 pub async fn serve(args: ServeArgs) -> anyhow::Result<()> {
     let running = start(&args).await?;
     // Scripts and tests read this line to learn the port when asked for port 0.
-    println!("proctor listening on http://{}", running.addr);
+    println!("proctor listening on {}", running.url());
     running.until_signal().await
 }
 

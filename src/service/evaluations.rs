@@ -9,7 +9,7 @@ use serde::{Deserialize, Serialize};
 use time::OffsetDateTime;
 use uuid::Uuid;
 
-use super::{App, limits};
+use super::{App, Caller, limits};
 use crate::engine::fit::{Entrant, Fit, fit};
 use crate::engine::gates::Gates;
 use crate::engine::settings::{
@@ -21,7 +21,7 @@ use crate::report::RoundTimings;
 use crate::sandbox::SandboxError;
 use crate::store::{
     AppliedRequest, CancelOutcome, DatasetRecord, EvaluationFilter, EvaluationRecord, ModelRecord,
-    NewEvaluation, Page,
+    NewEvaluation, Page, Role,
 };
 
 fn default_project() -> String {
@@ -153,8 +153,14 @@ impl App {
     pub async fn create_evaluation(
         &self,
         req: EvaluationRequest,
+        caller: &Caller,
     ) -> Result<EvaluationRecord, AppError> {
         limits::project(&req.project)?;
+        caller.may(
+            Role::Submitter,
+            Some(&req.project),
+            "creating an evaluation",
+        )?;
         limits::students(&req.students)?;
         limits::tags(&req.tags)?;
         let settings = req.settings();
@@ -180,6 +186,7 @@ impl App {
         let new = NewEvaluation {
             id: Uuid::now_v7(),
             created_at: OffsetDateTime::now_utc(),
+            created_by: caller.name(),
             request: AppliedRequest {
                 project: req.project,
                 teacher: teacher.id,
@@ -192,7 +199,12 @@ impl App {
         };
         self.check_fit(&new, &teacher, baseline.as_ref(), &students, &dataset)
             .await?;
-        let record = self.store.create_evaluation(&new).await?;
+        let record = self.store.create_evaluation(&new).await?.map_err(|gone| {
+            AppError::unprocessable(
+                format!("{gone} was deleted while the request was checked"),
+                None,
+            )
+        })?;
         self.workers.wake();
         Ok(record)
     }
@@ -329,8 +341,18 @@ impl App {
         })
     }
 
-    pub async fn cancel_evaluation(&self, id: Uuid) -> Result<EvaluationRecord, AppError> {
-        match self.store.cancel(id).await? {
+    pub async fn cancel_evaluation(
+        &self,
+        id: Uuid,
+        caller: &Caller,
+    ) -> Result<EvaluationRecord, AppError> {
+        let record = self.evaluation(id).await?;
+        caller.may(
+            Role::Submitter,
+            Some(&record.project),
+            "canceling an evaluation",
+        )?;
+        match self.store.cancel(id, caller.name().as_deref()).await? {
             CancelOutcome::Canceled(record) => {
                 self.workers.stop(id);
                 Ok(record)

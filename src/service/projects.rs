@@ -6,9 +6,9 @@ use serde::{Deserialize, Serialize};
 use time::OffsetDateTime;
 use uuid::Uuid;
 
-use super::{App, limits};
+use super::{App, Caller, limits};
 use crate::error::AppError;
-use crate::store::{NewBaseline, Page, Project, ProjectSummary, Status};
+use crate::store::{NewBaseline, Page, Project, ProjectSummary, Role, Status};
 
 /// The body of `PUT /v1/projects/{name}/baseline`.
 #[derive(Debug, Clone, Serialize, Deserialize)]
@@ -42,9 +42,14 @@ impl App {
         &self,
         project: &str,
         req: SetBaseline,
-        set_by: Option<String>,
+        caller: &Caller,
     ) -> Result<Project, AppError> {
         limits::project(project)?;
+        caller.may(
+            Role::Maintainer,
+            Some(project),
+            "setting a project's baseline",
+        )?;
         self.store.model(req.model).await?.ok_or_else(|| {
             AppError::unprocessable(format!("no model has id {}", req.model), Some("model"))
         })?;
@@ -78,7 +83,7 @@ impl App {
                 project: project.to_string(),
                 model: req.model,
                 set_at: OffsetDateTime::now_utc(),
-                set_by,
+                set_by: caller.name(),
                 evaluation: req.evaluation,
             })
             .await?;

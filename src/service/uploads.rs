@@ -2,18 +2,19 @@
 //! inspected by the engine in the sandbox, then stored by content.
 
 use std::path::Path;
+use std::time::{Duration, Instant};
 
 use bytes::Bytes;
 use futures_util::{Stream, StreamExt};
 use time::OffsetDateTime;
 use uuid::Uuid;
 
-use super::App;
+use super::{App, Caller};
 use crate::engine::dataset::DatasetInfo;
 use crate::engine::model::ModelInfo;
 use crate::error::AppError;
 use crate::sandbox::{Sandbox, SandboxError};
-use crate::store::{BlobKind, DatasetRecord, ModelRecord, Received, Store, StoreError};
+use crate::store::{BlobKind, DatasetRecord, ModelRecord, Received, Role, Store, StoreError};
 
 /// A stored record and whether this upload created it.
 pub struct Uploaded<T> {
@@ -21,8 +22,66 @@ pub struct Uploaded<T> {
     pub created: bool,
 }
 
+/// After this long, an upload must average at least `MIN_RATE`.
+const RATE_GRACE: Duration = Duration::from_secs(20);
+/// Bytes per second below which an upload is a stalled client, not a slow link.
+const MIN_RATE: u64 = 16 * 1024;
+/// The disk must keep this much free after an upload (api.md, "Limits").
+pub(crate) const MIN_FREE: u64 = 1 << 30;
+/// Free space is checked again after every this many bytes received.
+const RECHECK_EVERY: u64 = 64 << 20;
+
+/// The most of a refused upload's body read before the refusal goes out.
+const DRAIN_BYTES: u64 = 8 << 20;
+const DRAIN_TIME: Duration = Duration::from_secs(2);
+
+/// Reads and drops a little more of a refused upload before answering: an
+/// HTTP/1 client still sending would otherwise have its connection reset,
+/// and with it the answer that says why, when the rest arrives unread.
+async fn drained<S, E>(body: &mut S, refusal: AppError) -> AppError
+where
+    S: Stream<Item = Result<Bytes, E>> + Unpin,
+{
+    let read = async {
+        let mut seen = 0u64;
+        while let Some(Ok(chunk)) = body.next().await {
+            seen += chunk.len() as u64;
+            if seen >= DRAIN_BYTES {
+                break;
+            }
+        }
+    };
+    let _ = tokio::time::timeout(DRAIN_TIME, read).await;
+    refusal
+}
+
 impl App {
-    /// Streams a body to a temporary blob, refusing it past the size limit.
+    /// Refuses an upload that would take the stored data past
+    /// `--max-stored-bytes` or leave less than 1 GiB free on the disk.
+    async fn room_for(&self, bytes: u64) -> Result<(), AppError> {
+        let free = self.store.blobs.free_bytes().map_err(AppError::internal)?;
+        if free < bytes.saturating_add(MIN_FREE) {
+            return Err(AppError::InsufficientStorage(format!(
+                "the disk holding the service's data would have less than {} MiB free; \
+                 delete models or sets, or ask the operator for room",
+                MIN_FREE >> 20
+            )));
+        }
+        if let Some(limit) = self.config.max_stored_bytes {
+            let stored = self.store.stored_bytes().await?;
+            if stored.saturating_add(bytes) > limit {
+                return Err(AppError::InsufficientStorage(format!(
+                    "the service keeps at most {limit} bytes of models and sets and holds \
+                     {stored}; delete some first"
+                )));
+            }
+        }
+        Ok(())
+    }
+
+    /// Streams a body to a temporary blob, refusing it past the size limit,
+    /// when the disk runs short, or when the client stalls. Whatever ends
+    /// it early, the temporary file goes with it.
     async fn receive<S, E>(&self, body: S, declared_len: Option<u64>) -> Result<Received, AppError>
     where
         S: Stream<Item = Result<Bytes, E>> + Unpin,
@@ -30,65 +89,100 @@ impl App {
     {
         let limit = self.config.max_upload_bytes;
         let too_large = || AppError::TooLarge(format!("uploads are limited to {limit} bytes"));
-        if declared_len.is_some_and(|n| n > limit) {
-            return Err(too_large());
-        }
         let mut body = body;
+        if declared_len.is_some_and(|n| n > limit) {
+            return Err(drained(&mut body, too_large()).await);
+        }
+        if let Err(e) = self.room_for(declared_len.unwrap_or(0)).await {
+            return Err(drained(&mut body, e).await);
+        }
         let mut incoming = self.store.blobs.begin().await?;
-        while let Some(chunk) = body.next().await {
-            let chunk = match chunk {
-                Ok(c) => c,
-                Err(e) => {
-                    incoming.abandon().await;
+        let started = Instant::now();
+        let mut next_check = RECHECK_EVERY;
+        let idle = self.config.upload_idle;
+        loop {
+            let chunk = match tokio::time::timeout(idle, body.next()).await {
+                Err(_) => {
+                    return Err(AppError::TooSlow(format!(
+                        "the upload sent nothing for {} s and was dropped",
+                        idle.as_secs()
+                    )));
+                }
+                Ok(None) => break,
+                Ok(Some(Err(e))) => {
                     return Err(AppError::bad_request(
                         format!("the upload broke off: {e}"),
                         None,
                     ));
                 }
+                Ok(Some(Ok(c))) => c,
             };
             if incoming.bytes() + chunk.len() as u64 > limit {
-                incoming.abandon().await;
-                return Err(too_large());
+                drop(incoming);
+                return Err(drained(&mut body, too_large()).await);
             }
             incoming.write(chunk).await?;
+            let elapsed = started.elapsed();
+            if elapsed > RATE_GRACE && incoming.bytes() < MIN_RATE * elapsed.as_secs() {
+                return Err(AppError::TooSlow(format!(
+                    "the upload averaged under {} KiB/s and was dropped",
+                    MIN_RATE >> 10
+                )));
+            }
+            if incoming.bytes() >= next_check {
+                self.room_for(RECHECK_EVERY).await?;
+                next_check += RECHECK_EVERY;
+            }
         }
         if incoming.bytes() == 0 {
-            incoming.abandon().await;
             return Err(AppError::unprocessable("the upload is empty", None));
         }
         Ok(incoming.finish().await?)
     }
 
     /// Stores an upload of kind `K`: streamed and hashed, answered from the
-    /// store when the same bytes are already there, else inspected by the
-    /// engine and recorded.
+    /// store when the same bytes are already there (restoring the file if it
+    /// had gone missing from disk), else inspected by the engine and
+    /// recorded. At most `--max-uploads` stream at once.
     pub async fn upload<K: Upload, S, E>(
         &self,
         name: String,
         body: S,
         declared_len: Option<u64>,
+        caller: &Caller,
     ) -> Result<Uploaded<K>, AppError>
     where
         S: Stream<Item = Result<Bytes, E>> + Unpin,
         E: std::fmt::Display,
     {
+        let mut body = body;
+        if let Err(e) = caller.may(Role::Submitter, None, "uploading") {
+            return Err(drained(&mut body, e).await);
+        }
+        let Ok(_slot) = self.uploads.clone().try_acquire_owned() else {
+            let busy = AppError::Unavailable {
+                detail: "the service is receiving as many uploads as it takes at once; try again \
+                         shortly"
+                    .into(),
+                retry_after: Some(Duration::from_secs(5)),
+            };
+            return Err(drained(&mut body, busy).await);
+        };
         let received = self.receive(body, declared_len).await?;
+        self.telemetry.upload(K::BLOB.folder(), received.bytes);
         if let Some(existing) = K::stored(&self.store, &received.sha256).await? {
-            self.store.blobs.discard(&received).await;
+            if !self.store.blobs.exists(K::BLOB, &received.sha256).await? {
+                tracing::warn!(sha256 = %received.sha256, "a stored file was missing; restored from this upload");
+                self.store.blobs.commit(K::BLOB, received).await?;
+            }
             return Ok(Uploaded {
                 record: existing,
                 created: false,
             });
         }
-        let info = match K::inspect(&self.sandbox, &received.path).await {
-            Ok(info) => info,
-            Err(e) => {
-                self.store.blobs.discard(&received).await;
-                return Err(e.into());
-            }
-        };
+        let info = K::inspect(&self.sandbox, received.path()).await?;
         let record = K::record(name, &received, info);
-        self.store.blobs.commit(K::BLOB, &received).await?;
+        self.store.blobs.commit(K::BLOB, received).await?;
         let (record, created) = K::insert(&self.store, &record).await?;
         Ok(Uploaded { record, created })
     }
@@ -191,5 +285,48 @@ impl Upload for DatasetRecord {
         record: &Self,
     ) -> impl Future<Output = Result<(Self, bool), StoreError>> + Send {
         store.insert_dataset(record)
+    }
+}
+
+impl App {
+    /// Deletes a model's file; its record stays for the finished
+    /// evaluations that name it. Refused while an unfinished evaluation or
+    /// a project's current baseline uses it.
+    pub async fn delete_model(&self, id: Uuid, caller: &Caller) -> Result<(), AppError> {
+        caller.may(Role::Maintainer, None, "deleting a model")?;
+        let model = self
+            .store
+            .model(id)
+            .await?
+            .ok_or_else(|| AppError::NotFound(format!("no model has id {id}")))?;
+        if let Err(why) = self.store.delete_model(id).await? {
+            return Err(AppError::Conflict(format!(
+                "model {id} cannot be deleted: {why}"
+            )));
+        }
+        self.store
+            .blobs
+            .remove(BlobKind::Model, &model.sha256)
+            .await?;
+        Ok(())
+    }
+
+    pub async fn delete_dataset(&self, id: Uuid, caller: &Caller) -> Result<(), AppError> {
+        caller.may(Role::Maintainer, None, "deleting an evaluation set")?;
+        let set = self
+            .store
+            .dataset(id)
+            .await?
+            .ok_or_else(|| AppError::NotFound(format!("no evaluation set has id {id}")))?;
+        if let Err(why) = self.store.delete_dataset(id).await? {
+            return Err(AppError::Conflict(format!(
+                "evaluation set {id} cannot be deleted: {why}"
+            )));
+        }
+        self.store
+            .blobs
+            .remove(BlobKind::Dataset, &set.sha256)
+            .await?;
+        Ok(())
     }
 }

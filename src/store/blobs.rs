@@ -1,8 +1,11 @@
 //! Content-addressed files under the data dir: uploads stream into a
 //! temporary file while being hashed, then are renamed to a path derived
-//! from their SHA-256 alone — never from anything a user gave.
+//! from their SHA-256 alone — never from anything a user gave. A temporary
+//! file is removed however its upload ends (refused, failed, or the client
+//! gone), by a guard that only a commit disarms.
 
 use std::path::{Path, PathBuf};
+use std::time::{Duration, SystemTime};
 
 use sha2::{Digest, Sha256};
 use tokio::fs;
@@ -17,7 +20,7 @@ pub enum BlobKind {
 }
 
 impl BlobKind {
-    fn folder(self) -> &'static str {
+    pub fn folder(self) -> &'static str {
         match self {
             BlobKind::Model => "models",
             BlobKind::Dataset => "datasets",
@@ -30,11 +33,28 @@ pub struct Blobs {
     root: PathBuf,
 }
 
+/// A temporary file that is removed when dropped, unless kept.
+#[derive(Debug)]
+struct TempFile {
+    path: PathBuf,
+    keep: bool,
+}
+
+impl Drop for TempFile {
+    fn drop(&mut self) {
+        if !self.keep {
+            // A writer still holding the file writes to an unlinked inode,
+            // which the kernel frees when it closes.
+            let _ = std::fs::remove_file(&self.path);
+        }
+    }
+}
+
 /// An upload being written. Chunks go to one blocking thread that hashes
 /// and writes them with plain file I/O, so the async side only forwards
 /// buffers and the hashing overlaps the network.
 pub struct Incoming {
-    path: PathBuf,
+    file: TempFile,
     bytes: u64,
     chunks: tokio::sync::mpsc::Sender<bytes::Bytes>,
     writer: tokio::task::JoinHandle<std::io::Result<String>>,
@@ -42,6 +62,10 @@ pub struct Incoming {
 
 /// Chunks in flight between the request and the writer thread.
 const IN_FLIGHT: usize = 16;
+
+/// Temporary files untouched for this long belong to no live upload (an
+/// upload writes as it streams; a check runs for minutes at most).
+pub(super) const STALE_AFTER: Duration = Duration::from_secs(3600);
 
 fn write_and_hash(
     path: &Path,
@@ -62,11 +86,26 @@ fn write_and_hash(
     Ok(hex::encode(hasher.finalize()))
 }
 
-/// A fully written upload, not yet in the store.
+/// A fully written upload, not yet in the store; its file goes when it is
+/// dropped, unless committed.
 pub struct Received {
-    pub path: PathBuf,
+    file: TempFile,
     pub sha256: String,
     pub bytes: u64,
+}
+
+impl Received {
+    pub fn path(&self) -> &Path {
+        &self.file.path
+    }
+}
+
+/// Makes a rename in `dir` durable.
+async fn sync_dir(dir: &Path) -> std::io::Result<()> {
+    let dir = dir.to_owned();
+    tokio::task::spawn_blocking(move || std::fs::File::open(dir)?.sync_all())
+        .await
+        .map_err(std::io::Error::other)?
 }
 
 impl Blobs {
@@ -77,6 +116,10 @@ impl Blobs {
         Ok(Blobs {
             root: root.to_owned(),
         })
+    }
+
+    pub fn root(&self) -> &Path {
+        &self.root
     }
 
     pub fn path_of(&self, kind: BlobKind, sha256: &str) -> PathBuf {
@@ -93,46 +136,99 @@ impl Blobs {
         self.root.join("cpu.lock")
     }
 
+    fn incoming_dir(&self) -> PathBuf {
+        self.root.join("incoming")
+    }
+
     pub async fn begin(&self) -> Result<Incoming, StoreError> {
-        let path = self
-            .root
-            .join("incoming")
-            .join(uuid::Uuid::now_v7().to_string());
+        let path = self.incoming_dir().join(uuid::Uuid::now_v7().to_string());
         let (chunks, rx) = tokio::sync::mpsc::channel(IN_FLIGHT);
         let target = path.clone();
         let writer = tokio::task::spawn_blocking(move || write_and_hash(&target, rx));
         Ok(Incoming {
-            path,
+            file: TempFile { path, keep: false },
             bytes: 0,
             chunks,
             writer,
         })
     }
 
-    /// Moves a received file to its content address; a file already there is
-    /// the same bytes, so the new copy is simply dropped.
-    pub async fn commit(&self, kind: BlobKind, received: &Received) -> Result<PathBuf, StoreError> {
+    /// Moves a received file to its content address. A file already there
+    /// holds the same bytes, so the new copy is dropped; a blob that had
+    /// gone missing from disk is restored by it.
+    pub async fn commit(
+        &self,
+        kind: BlobKind,
+        mut received: Received,
+    ) -> Result<PathBuf, StoreError> {
         let target = self.path_of(kind, &received.sha256);
-        if fs::try_exists(&target).await? {
-            fs::remove_file(&received.path).await?;
-        } else {
-            fs::rename(&received.path, &target).await?;
+        if !fs::try_exists(&target).await? {
+            fs::rename(received.path(), &target).await?;
+            received.file.keep = true;
+            sync_dir(target.parent().expect("blobs live in a folder")).await?;
         }
         Ok(target)
     }
 
-    /// Removes what a failed or refused upload left behind.
-    pub async fn discard(&self, received: &Received) {
-        let _ = fs::remove_file(&received.path).await;
+    /// Bytes free for us on the disk that holds the data dir.
+    pub fn free_bytes(&self) -> std::io::Result<u64> {
+        let s = rustix::fs::statvfs(&self.root)?;
+        Ok(s.f_bavail.saturating_mul(s.f_frsize))
     }
 
-    /// Clears uploads that a crash interrupted mid-stream.
-    pub async fn sweep_incoming(&self) -> Result<(), StoreError> {
-        let mut dir = fs::read_dir(self.root.join("incoming")).await?;
-        while let Some(entry) = dir.next_entry().await? {
-            let _ = fs::remove_file(entry.path()).await;
-        }
+    /// Writes, syncs and removes a small file where uploads land, to learn
+    /// that the store takes writes (a full or read-only disk does not).
+    pub async fn probe_writable(&self) -> std::io::Result<()> {
+        let path = self
+            .incoming_dir()
+            .join(format!("probe-{}", uuid::Uuid::now_v7()));
+        let file = TempFile { path, keep: false };
+        let target = file.path.clone();
+        tokio::task::spawn_blocking(move || {
+            use std::io::Write;
+            let mut f = std::fs::File::create(&target)?;
+            f.write_all(b"proctor")?;
+            f.sync_all()
+        })
+        .await
+        .map_err(std::io::Error::other)??;
+        drop(file);
         Ok(())
+    }
+
+    /// Whether the blob of a stored record is on disk.
+    pub async fn exists(&self, kind: BlobKind, sha256: &str) -> Result<bool, StoreError> {
+        Ok(fs::try_exists(self.path_of(kind, sha256)).await?)
+    }
+
+    /// Clears temporary files no upload holds: all of them at start (a
+    /// crash interrupted them), and later those untouched for `older_than`.
+    pub async fn sweep_incoming(&self, older_than: Option<Duration>) -> Result<u64, StoreError> {
+        let mut dir = fs::read_dir(self.incoming_dir()).await?;
+        let now = SystemTime::now();
+        let mut removed = 0;
+        while let Some(entry) = dir.next_entry().await? {
+            let stale = match older_than {
+                None => true,
+                Some(age) => entry
+                    .metadata()
+                    .await
+                    .and_then(|m| m.modified())
+                    .is_ok_and(|t| now.duration_since(t).unwrap_or_default() >= age),
+            };
+            if stale && fs::remove_file(entry.path()).await.is_ok() {
+                removed += 1;
+            }
+        }
+        Ok(removed)
+    }
+
+    /// Removes a stored blob (its record is gone); a file already gone is fine.
+    pub async fn remove(&self, kind: BlobKind, sha256: &str) -> Result<(), StoreError> {
+        match fs::remove_file(self.path_of(kind, sha256)).await {
+            Err(e) if e.kind() != std::io::ErrorKind::NotFound => Err(e.into()),
+            _ => Ok(()),
+        }
     }
 }
 
@@ -160,7 +256,7 @@ impl Incoming {
 
     pub async fn finish(self) -> Result<Received, StoreError> {
         let Incoming {
-            path,
+            file,
             bytes,
             chunks,
             writer,
@@ -168,21 +264,9 @@ impl Incoming {
         drop(chunks);
         let sha256 = writer.await??;
         Ok(Received {
-            path,
+            file,
             sha256,
             bytes,
         })
-    }
-
-    pub async fn abandon(self) {
-        let Incoming {
-            path,
-            chunks,
-            writer,
-            ..
-        } = self;
-        drop(chunks);
-        let _ = writer.await;
-        let _ = fs::remove_file(&path).await;
     }
 }

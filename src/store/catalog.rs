@@ -1,18 +1,32 @@
 //! Stored models and evaluation sets: one row per distinct file (SHA-256).
 
 use sqlx::types::Json;
+use time::OffsetDateTime;
 use uuid::Uuid;
 
 use super::rows::{DatasetRow, ModelRow};
 use super::{DatasetRecord, ModelRecord, Page, Store, StoreError, page};
 
 impl Store {
+    /// Bytes of every stored model and evaluation set.
+    pub async fn stored_bytes(&self) -> Result<u64, StoreError> {
+        let (n,): (i64,) = sqlx::query_as(
+            "SELECT (SELECT COALESCE(SUM(bytes), 0) FROM models WHERE deleted_at IS NULL) + \
+             (SELECT COALESCE(SUM(bytes), 0) FROM datasets WHERE deleted_at IS NULL)",
+        )
+        .fetch_one(&self.pool)
+        .await?;
+        Ok(n as u64)
+    }
+
     /// Inserts a model unless one with the same SHA-256 exists; returns the
-    /// stored record and whether it is new. The first name given is kept.
+    /// stored record and whether it is new. The first name given is kept; a
+    /// deleted model of the same bytes is revived under its old id.
     pub async fn insert_model(&self, m: &ModelRecord) -> Result<(ModelRecord, bool), StoreError> {
         let inserted = sqlx::query(
             "INSERT INTO models (id, name, sha256, bytes, info, created_at) \
-             VALUES (?1, ?2, ?3, ?4, ?5, ?6) ON CONFLICT (sha256) DO NOTHING",
+             VALUES (?1, ?2, ?3, ?4, ?5, ?6) \
+             ON CONFLICT (sha256) DO UPDATE SET deleted_at = NULL WHERE models.deleted_at IS NOT NULL",
         )
         .bind(m.id)
         .bind(&m.name)
@@ -31,7 +45,11 @@ impl Store {
     }
 
     pub async fn model(&self, id: Uuid) -> Result<Option<ModelRecord>, StoreError> {
-        let q = concat!("SELECT ", model_columns!(), " FROM models WHERE id = ?1");
+        let q = concat!(
+            "SELECT ",
+            model_columns!(),
+            " FROM models WHERE id = ?1 AND deleted_at IS NULL"
+        );
         let row: Option<ModelRow> = sqlx::query_as(q)
             .bind(id)
             .fetch_optional(&self.pool)
@@ -43,7 +61,7 @@ impl Store {
         let q = concat!(
             "SELECT ",
             model_columns!(),
-            " FROM models WHERE sha256 = ?1"
+            " FROM models WHERE sha256 = ?1 AND deleted_at IS NULL"
         );
         let row: Option<ModelRow> = sqlx::query_as(q)
             .bind(sha256)
@@ -62,7 +80,7 @@ impl Store {
         let q = concat!(
             "SELECT ",
             model_columns!(),
-            " FROM models WHERE (?1 IS NULL OR sha256 = ?1) \
+            " FROM models WHERE deleted_at IS NULL AND (?1 IS NULL OR sha256 = ?1) \
              AND (?2 IS NULL OR id < ?2) ORDER BY id DESC LIMIT ?3"
         );
         let rows: Vec<ModelRow> = sqlx::query_as(q)
@@ -82,7 +100,8 @@ impl Store {
         let inserted = sqlx::query(
             "INSERT INTO datasets (id, name, sha256, bytes, samples, has_labels, arrays, \
              largest_label, class_names, slice_count, created_at) \
-             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11) ON CONFLICT (sha256) DO NOTHING",
+             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11) \
+             ON CONFLICT (sha256) DO UPDATE SET deleted_at = NULL WHERE datasets.deleted_at IS NOT NULL",
         )
         .bind(d.id)
         .bind(&d.name)
@@ -109,7 +128,7 @@ impl Store {
         let q = concat!(
             "SELECT ",
             dataset_columns!(),
-            " FROM datasets WHERE id = ?1"
+            " FROM datasets WHERE id = ?1 AND deleted_at IS NULL"
         );
         let row: Option<DatasetRow> = sqlx::query_as(q)
             .bind(id)
@@ -122,7 +141,7 @@ impl Store {
         let q = concat!(
             "SELECT ",
             dataset_columns!(),
-            " FROM datasets WHERE sha256 = ?1"
+            " FROM datasets WHERE sha256 = ?1 AND deleted_at IS NULL"
         );
         let row: Option<DatasetRow> = sqlx::query_as(q)
             .bind(sha256)
@@ -140,7 +159,7 @@ impl Store {
         let q = concat!(
             "SELECT ",
             dataset_columns!(),
-            " FROM datasets WHERE (?1 IS NULL OR sha256 = ?1) \
+            " FROM datasets WHERE deleted_at IS NULL AND (?1 IS NULL OR sha256 = ?1) \
              AND (?2 IS NULL OR id < ?2) ORDER BY id DESC LIMIT ?3"
         );
         let rows: Vec<DatasetRow> = sqlx::query_as(q)
@@ -152,4 +171,78 @@ impl Store {
         let items = rows.into_iter().map(DatasetRecord::from).collect();
         Ok(page(items, limit, |d| d.id))
     }
+}
+
+impl Store {
+    /// Marks a model deleted unless something uses it: `Ok(Err(why))`
+    /// then, and nothing changes. The mark comes first, so the check runs
+    /// holding the write lock and no evaluation can start using the model
+    /// between the two (see `create_evaluation`).
+    pub async fn delete_model(&self, id: Uuid) -> Result<Result<(), String>, StoreError> {
+        let mut tx = self.pool.begin().await?;
+        sqlx::query("UPDATE models SET deleted_at = ?1 WHERE id = ?2 AND deleted_at IS NULL")
+            .bind(OffsetDateTime::now_utc())
+            .bind(id)
+            .execute(&mut *tx)
+            .await?;
+        if let Some(why) = model_in_use(&mut tx, id).await? {
+            return Ok(Err(why));
+        }
+        tx.commit().await?;
+        Ok(Ok(()))
+    }
+
+    /// As `delete_model`, for an evaluation set.
+    pub async fn delete_dataset(&self, id: Uuid) -> Result<Result<(), String>, StoreError> {
+        let mut tx = self.pool.begin().await?;
+        sqlx::query("UPDATE datasets SET deleted_at = ?1 WHERE id = ?2 AND deleted_at IS NULL")
+            .bind(OffsetDateTime::now_utc())
+            .bind(id)
+            .execute(&mut *tx)
+            .await?;
+        let live: Option<(Uuid,)> = sqlx::query_as(
+            "SELECT id FROM evaluations WHERE dataset_id = ?1 AND status IN ('queued', 'running') \
+             LIMIT 1",
+        )
+        .bind(id)
+        .fetch_optional(&mut *tx)
+        .await?;
+        if let Some((e,)) = live {
+            return Ok(Err(format!(
+                "evaluation {e}, which has not finished, uses it"
+            )));
+        }
+        tx.commit().await?;
+        Ok(Ok(()))
+    }
+}
+
+/// What keeps a model from being deleted: an unfinished evaluation, or a
+/// project whose current baseline it is.
+async fn model_in_use(
+    tx: &mut sqlx::SqliteConnection,
+    id: Uuid,
+) -> Result<Option<String>, StoreError> {
+    let live: Option<(Uuid,)> = sqlx::query_as(
+        "SELECT e.id FROM evaluations e WHERE e.status IN ('queued', 'running') AND \
+         (e.teacher_id = ?1 OR EXISTS (SELECT 1 FROM evaluation_students s \
+          WHERE s.evaluation_id = e.id AND s.model_id = ?1) \
+          OR e.baseline_id = ?1) LIMIT 1",
+    )
+    .bind(id)
+    .fetch_optional(&mut *tx)
+    .await?;
+    if let Some((e,)) = live {
+        return Ok(Some(format!(
+            "evaluation {e}, which has not finished, uses it"
+        )));
+    }
+    let baseline: Option<(String,)> = sqlx::query_as(
+        "SELECT b.project FROM baselines b WHERE b.model_id = ?1 AND b.position = \
+         (SELECT MAX(position) FROM baselines c WHERE c.project = b.project) LIMIT 1",
+    )
+    .bind(id)
+    .fetch_optional(&mut *tx)
+    .await?;
+    Ok(baseline.map(|(p,)| format!("it is project '{p}''s current baseline")))
 }

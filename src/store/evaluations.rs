@@ -23,15 +23,21 @@ fn record(row: Option<EvaluationRow>) -> Result<Option<EvaluationRecord>, StoreE
 impl Store {
     /// Stores a new queued evaluation with its students and tags in one
     /// transaction, so a worker never sees half of it.
+    /// Queues an evaluation; `Err(id)` inside when one of the models or
+    /// the set it names was deleted meanwhile, in which case nothing is
+    /// stored. The check runs inside the insert's write transaction, and a
+    /// delete checks for users inside its own, so one of the two always
+    /// sees the other.
     pub async fn create_evaluation(
         &self,
         e: &NewEvaluation,
-    ) -> Result<EvaluationRecord, StoreError> {
+    ) -> Result<Result<EvaluationRecord, Uuid>, StoreError> {
         let r = &e.request;
         let mut tx = self.pool.begin().await?;
         sqlx::query(
             "INSERT INTO evaluations (id, project, teacher_id, dataset_id, status, request, tags, \
-             created_at) VALUES (?1, ?2, ?3, ?4, 'queued', ?5, ?6, ?7)",
+             created_at, created_by, baseline_id) \
+             VALUES (?1, ?2, ?3, ?4, 'queued', ?5, ?6, ?7, ?8, ?9)",
         )
         .bind(e.id)
         .bind(&r.project)
@@ -40,6 +46,8 @@ impl Store {
         .bind(Json(r))
         .bind(Json(&r.tags))
         .bind(e.created_at)
+        .bind(&e.created_by)
+        .bind(r.baseline)
         .execute(&mut *tx)
         .await?;
         for (position, student) in r.students.iter().enumerate() {
@@ -62,10 +70,32 @@ impl Store {
             .execute(&mut *tx)
             .await?;
         }
+        let models = std::iter::once(r.teacher)
+            .chain(r.students.iter().copied())
+            .chain(r.baseline);
+        for id in models {
+            let (deleted,): (bool,) =
+                sqlx::query_as("SELECT deleted_at IS NOT NULL FROM models WHERE id = ?1")
+                    .bind(id)
+                    .fetch_one(&mut *tx)
+                    .await?;
+            if deleted {
+                return Ok(Err(id));
+            }
+        }
+        let (deleted,): (bool,) =
+            sqlx::query_as("SELECT deleted_at IS NOT NULL FROM datasets WHERE id = ?1")
+                .bind(r.dataset)
+                .fetch_one(&mut *tx)
+                .await?;
+        if deleted {
+            return Ok(Err(r.dataset));
+        }
         tx.commit().await?;
-        self.evaluation(e.id).await?.ok_or_else(|| {
+        let record = self.evaluation(e.id).await?.ok_or_else(|| {
             StoreError::Corrupt(format!("evaluation {} vanished after insert", e.id))
-        })
+        })?;
+        Ok(Ok(record))
     }
 
     pub async fn evaluation(&self, id: Uuid) -> Result<Option<EvaluationRecord>, StoreError> {
@@ -275,15 +305,16 @@ impl Store {
         Ok((requeued, failed))
     }
 
-    /// Cancels a queued or running evaluation.
-    pub async fn cancel(&self, id: Uuid) -> Result<CancelOutcome, StoreError> {
+    /// Cancels a queued or running evaluation, recording by whom.
+    pub async fn cancel(&self, id: Uuid, by: Option<&str>) -> Result<CancelOutcome, StoreError> {
         let row = sqlx::query_as(concat!(
-            "UPDATE evaluations SET status = 'canceled', finished_at = ?1, claimed_by = NULL",
-            " WHERE id = ?2 AND status IN ('queued', 'running') RETURNING ",
+            "UPDATE evaluations SET status = 'canceled', finished_at = ?1, claimed_by = NULL,",
+            " canceled_by = ?3 WHERE id = ?2 AND status IN ('queued', 'running') RETURNING ",
             evaluation_columns!()
         ))
         .bind(OffsetDateTime::now_utc())
         .bind(id)
+        .bind(by)
         .fetch_optional(&self.pool)
         .await?;
         if let Some(record) = record(row)? {
@@ -315,6 +346,21 @@ impl Store {
         Ok(rounds.map(|(r,)| r.0))
     }
 
+    /// Evaluations in each status, every status listed (for `/metrics`).
+    pub async fn status_counts(&self) -> Result<Vec<(Status, u64)>, StoreError> {
+        let rows: Vec<(Status, i64)> =
+            sqlx::query_as("SELECT status, COUNT(*) FROM evaluations GROUP BY status")
+                .fetch_all(&self.pool)
+                .await?;
+        Ok(Status::ALL
+            .into_iter()
+            .map(|st| {
+                let n = rows.iter().find(|(s, _)| *s == st).map_or(0, |(_, n)| *n);
+                (st, n as u64)
+            })
+            .collect())
+    }
+
     /// Counts evaluations in a status (for readiness and tests).
     pub async fn count_status(&self, status: Status) -> Result<u64, StoreError> {
         let (n,): (i64,) = sqlx::query_as("SELECT COUNT(*) FROM evaluations WHERE status = ?1")
@@ -322,5 +368,27 @@ impl Store {
             .fetch_one(&self.pool)
             .await?;
         Ok(n as u64)
+    }
+}
+
+impl Store {
+    /// Deletes finished evaluations created before `cutoff` (with their
+    /// reports, timings and rows), except those a baseline history names.
+    pub async fn delete_finished_before(&self, cutoff: OffsetDateTime) -> Result<u64, StoreError> {
+        // Ids are UUID v7: those made before `cutoff` sort below this one.
+        let bound = Uuid::new_v7(uuid::Timestamp::from_unix(
+            uuid::NoContext,
+            cutoff.unix_timestamp().max(0) as u64,
+            cutoff.nanosecond(),
+        ));
+        Ok(sqlx::query(
+            "DELETE FROM evaluations WHERE id < ?1 \
+             AND status IN ('succeeded', 'failed', 'canceled') \
+             AND id NOT IN (SELECT evaluation_id FROM baselines WHERE evaluation_id IS NOT NULL)",
+        )
+        .bind(bound)
+        .execute(&self.pool)
+        .await?
+        .rows_affected())
     }
 }

@@ -36,7 +36,7 @@ macro_rules! evaluation_columns {
     () => {
         "id, project, teacher_id, dataset_id, status, request, tags, progress_stage, \
          progress_done, progress_total, error, attempts, created_at, started_at, finished_at, \
-         verdict, recommended_id"
+         verdict, recommended_id, created_by, canceled_by"
     };
 }
 
@@ -49,6 +49,7 @@ mod jobs;
 mod projects;
 mod records;
 mod rows;
+mod tokens;
 
 use std::path::Path;
 use std::str::FromStr;
@@ -60,6 +61,11 @@ use sqlx::sqlite::{
 use uuid::Uuid;
 
 pub use blobs::{BlobKind, Blobs, Incoming, Received};
+
+/// How long a temporary upload file may sit untouched before a sweep takes it.
+pub fn blobs_stale_after() -> Duration {
+    blobs::STALE_AFTER
+}
 pub use dashboard::{EvaluationRow, TrendPoint};
 pub use error::StoreError;
 pub use projects::{BaselineRecord, NewBaseline, Project, ProjectSummary};
@@ -67,6 +73,7 @@ pub use records::{
     AppliedRequest, CancelOutcome, DatasetRecord, EvaluationFilter, EvaluationRecord, ModelRecord,
     NewEvaluation, Page, Progress, Status,
 };
+pub use tokens::{EVERY_PROJECT, Role, TokenRecord, secret_hash};
 
 /// Attempts an evaluation gets before a crash-looping one is failed for good.
 pub const MAX_ATTEMPTS: u32 = 3;
@@ -93,7 +100,7 @@ impl Store {
             .await?;
         sqlx::migrate!("./migrations").run(&pool).await?;
         let blobs = Blobs::open(data_dir).await?;
-        blobs.sweep_incoming().await?;
+        blobs.sweep_incoming(None).await?;
         Ok(Store { pool, blobs })
     }
 

@@ -146,6 +146,13 @@ pub struct EvaluationRecord {
     pub dataset: Uuid,
     /// Times a worker claimed it; a graceful stop gives its attempt back.
     pub attempts: u32,
+    /// The token that created it; null with access off.
+    pub created_by: Option<String>,
+    /// The token that canceled it, if one did.
+    pub canceled_by: Option<String>,
+    /// The worker that runs or ran it; null while workers run inside the
+    /// service process.
+    pub worker: Option<Uuid>,
 }
 
 /// A new evaluation as the service validated it.
@@ -154,6 +161,7 @@ pub struct NewEvaluation {
     pub id: Uuid,
     pub request: AppliedRequest,
     pub created_at: OffsetDateTime,
+    pub created_by: Option<String>,
 }
 
 /// Filters of `GET /v1/evaluations`; `None` matches everything.

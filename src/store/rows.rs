@@ -93,6 +93,8 @@ pub(super) struct EvaluationRow {
     finished_at: Option<OffsetDateTime>,
     verdict: Option<String>,
     recommended_id: Option<Uuid>,
+    created_by: Option<String>,
+    canceled_by: Option<String>,
 }
 
 /// A stage as stored; NULL is an evaluation no worker has started.
@@ -133,6 +135,9 @@ impl TryFrom<EvaluationRow> for EvaluationRecord {
             teacher: r.teacher_id,
             dataset: r.dataset_id,
             attempts: r.attempts as u32,
+            created_by: r.created_by,
+            canceled_by: r.canceled_by,
+            worker: None,
         })
     }
 }

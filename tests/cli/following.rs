@@ -42,12 +42,25 @@ async fn wait_and_report_end_as_submit_would_have() {
         "--junit",
         junit.to_str().unwrap(),
     ]);
-    assert_eq!(waited.status.code(), Some(1), "no-go: {}", text(&waited.stderr));
+    assert_eq!(
+        waited.status.code(),
+        Some(1),
+        "no-go: {}",
+        text(&waited.stderr)
+    );
     assert!(text(&waited.stdout).contains("verdict: NO-GO"));
-    assert!(std::fs::read_to_string(&junit).unwrap().contains("min_agreement"));
+    assert!(
+        std::fs::read_to_string(&junit)
+            .unwrap()
+            .contains("min_agreement")
+    );
     let fetched = proctor(&["report", &id, "--server", &s.base]);
     assert_eq!(fetched.status.code(), Some(1));
-    assert_eq!(text(&fetched.stdout), text(&waited.stdout), "the same table");
+    assert_eq!(
+        text(&fetched.stdout),
+        text(&waited.stdout),
+        "the same table"
+    );
 }
 
 #[tokio::test]
@@ -74,7 +87,15 @@ async fn a_service_restart_while_waiting_does_not_fail_the_job() {
         file("mlp", "data.npz"),
     );
     let job = Command::new(env!("CARGO_BIN_EXE_proctor"))
-        .args(["submit", "--server", &s.base, "--teacher", &t, "--student", &st])
+        .args([
+            "submit",
+            "--server",
+            &s.base,
+            "--teacher",
+            &t,
+            "--student",
+            &st,
+        ])
         .args(["--data", &d, "--timeout", "3m"])
         .stdout(Stdio::piped())
         .stderr(Stdio::piped())

@@ -278,19 +278,25 @@ async fn input_errors_exit_2_and_server_errors_exit_3() {
     assert_eq!(down.status.code(), Some(3), "{}", text(&down.stderr));
 }
 
+/// The demo's story (demo/README.md): distillation beats hard labels at the
+/// same size, a slice gate stops the student that regresses at one position,
+/// and the distilled student is recommended against the production baseline.
 #[test]
-fn the_demo_ranks_the_distilled_student_above_the_hard_label_one() {
+fn the_demo_recommends_the_distilled_student_and_a_slice_gate_stops_the_wide_one() {
     let dir = tempfile::tempdir().unwrap();
     let out = proctor(&["demo", "--exit", "--data-dir", dir.path().to_str().unwrap()]);
     assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
     let table = text(&out.stdout);
-    let agreement = |name: &str| -> f64 {
-        let line = table
+    let row = |name: &str| -> &str {
+        table
             .lines()
-            .find(|l| l.contains(name))
-            .unwrap_or_else(|| panic!("no row {name}:\n{table}"));
-        // rank, model, an optional Pareto star, then agreement.
-        line.split_whitespace()
+            .find(|l| l.split_whitespace().nth(1) == Some(name))
+            .unwrap_or_else(|| panic!("no row {name}:\n{table}"))
+    };
+    // rank, model, an optional Pareto star, then agreement.
+    let agreement = |name: &str| -> f64 {
+        row(name)
+            .split_whitespace()
             .skip(2)
             .find(|t| *t != "*")
             .unwrap()
@@ -301,6 +307,22 @@ fn the_demo_ranks_the_distilled_student_above_the_hard_label_one() {
         agreement("student_distilled_64") > agreement("student_hard_64"),
         "{table}"
     );
-    assert!(table.contains("dashboard: http://127.0.0.1:"), "{table}");
+    assert!(row("student_production").starts_with("base"), "{table}");
+    assert!(row("student_distilled_64").contains("pass 5/5"), "{table}");
+    assert!(
+        table.contains("student_wide_96: min_slice_agreement at tower_base"),
+        "{table}"
+    );
+    assert!(
+        table.contains("verdict: GO — recommended student_distilled_64"),
+        "{table}"
+    );
+    // The service is gone once --exit returns: no address to visit, but the
+    // kept data dir is named.
+    assert!(!table.contains("dashboard: http"), "{table}");
+    assert!(
+        table.contains(&format!("kept in {}", dir.path().display())),
+        "{table}"
+    );
     assert!(Path::new(dir.path()).join("proctor.db").exists());
 }

@@ -44,7 +44,12 @@ async fn the_csv_lists_the_ranked_candidates_as_the_api_serves_them() {
         .send()
         .await
         .unwrap();
-    assert!(served.headers()["content-type"].to_str().unwrap().starts_with("text/csv"));
+    assert!(
+        served.headers()["content-type"]
+            .to_str()
+            .unwrap()
+            .starts_with("text/csv")
+    );
     assert_eq!(served.text().await.unwrap(), written);
 }
 
@@ -57,12 +62,22 @@ async fn junit_holds_names_with_markup_and_non_ascii_characters() {
     let named = format!("{wide}=wide <v2> & \"Ærø\"");
     let out = submit(
         &s,
-        &["--name", &named, "--gate", "min_agreement=0.99", "--junit", junit.to_str().unwrap()],
+        &[
+            "--name",
+            &named,
+            "--gate",
+            "min_agreement=0.99",
+            "--junit",
+            junit.to_str().unwrap(),
+        ],
     );
     assert_eq!(out.status.code(), Some(1), "{}", text(&out.stderr));
     let xml = std::fs::read_to_string(&junit).unwrap();
     let doc = roxmltree::Document::parse(&xml).expect("JUnit XML parses");
-    let suite = doc.descendants().find(|n| n.has_tag_name("testsuite")).unwrap();
+    let suite = doc
+        .descendants()
+        .find(|n| n.has_tag_name("testsuite"))
+        .unwrap();
     assert_eq!(suite.attribute("name"), Some("wide <v2> & \"Ærø\""));
 }
 
@@ -77,14 +92,29 @@ async fn an_adopted_candidate_is_the_baseline_the_next_submission_is_judged_agai
         a.extend_from_slice(extra);
         proctor(&a)
     };
-    let (wide, lean, prod) = (m("candidate_wide.onnx"), m("candidate_lean.onnx"), m("production.onnx"));
-    let first = common(&["--student", &prod, "--student", &lean, "--gate", "min_agreement=0.8"]);
+    let (wide, lean, prod) = (
+        m("candidate_wide.onnx"),
+        m("candidate_lean.onnx"),
+        m("production.onnx"),
+    );
+    let first = common(&[
+        "--student",
+        &prod,
+        "--student",
+        &lean,
+        "--gate",
+        "min_agreement=0.8",
+    ]);
     assert_eq!(first.status.code(), Some(0), "{}", text(&first.stderr));
     let listed = s.get("/v1/evaluations").await.body;
     let id = listed["items"][0]["id"].as_str().unwrap().to_string();
     let adopted = proctor(&["adopt", &id, "--server", &s.base]);
     assert_eq!(adopted.status.code(), Some(0), "{}", text(&adopted.stderr));
-    assert!(text(&adopted.stdout).contains("production"), "{}", text(&adopted.stdout));
+    assert!(
+        text(&adopted.stdout).contains("production"),
+        "{}",
+        text(&adopted.stdout)
+    );
     let project = s.get("/v1/projects/seed-grading").await.body;
     assert_eq!(project["baseline"]["model"]["name"], "production");
     assert_eq!(project["baseline"]["evaluation"], id.as_str());
@@ -99,7 +129,10 @@ async fn an_adopted_candidate_is_the_baseline_the_next_submission_is_judged_agai
     assert_eq!(next.status.code(), Some(0), "{}", text(&next.stderr));
     let table = text(&next.stdout);
     assert!(table.contains("against the baseline production"), "{table}");
-    assert!(table.lines().any(|l| l.trim_start().starts_with("base")), "{table}");
+    assert!(
+        table.lines().any(|l| l.trim_start().starts_with("base")),
+        "{table}"
+    );
     // lean failed its gate in the first evaluation: it cannot be adopted.
     let report = s.get(&format!("/v1/evaluations/{id}/report")).await.body;
     let lean_id = report["candidates"]
@@ -113,5 +146,9 @@ async fn an_adopted_candidate_is_the_baseline_the_next_submission_is_judged_agai
         .to_string();
     let refused = proctor(&["adopt", &id, "--server", &s.base, "--model", &lean_id]);
     assert_eq!(refused.status.code(), Some(2), "{}", text(&refused.stderr));
-    assert!(text(&refused.stderr).contains("passed every gate"), "{}", text(&refused.stderr));
+    assert!(
+        text(&refused.stderr).contains("passed every gate"),
+        "{}",
+        text(&refused.stderr)
+    );
 }

@@ -17,7 +17,9 @@ fn help_lists_every_gate_and_every_flag_says_what_it_does() {
     for (i, line) in lines.iter().enumerate() {
         let flag = line.trim_start();
         if flag.starts_with("--") {
-            let said = flag.split_once("  ").is_some_and(|(_, rest)| !rest.trim().is_empty())
+            let said = flag
+                .split_once("  ")
+                .is_some_and(|(_, rest)| !rest.trim().is_empty())
                 || lines.get(i + 1).is_some_and(|next| {
                     let next = next.trim_start();
                     !next.is_empty() && !next.starts_with('-')
@@ -40,7 +42,15 @@ async fn a_typo_in_a_gate_or_rank_fails_at_once_without_touching_the_server() {
         file("mlp", "data.npz"),
     );
     let base_args = |extra: &[&str]| {
-        let mut a = vec!["submit", "--server", &base, "--teacher", &t, "--timeout", "1s"];
+        let mut a = vec![
+            "submit",
+            "--server",
+            &base,
+            "--teacher",
+            &t,
+            "--timeout",
+            "1s",
+        ];
         a.extend(["--student", st.as_str(), "--data", d.as_str()]);
         a.extend_from_slice(extra);
         proctor(&a)
@@ -94,7 +104,8 @@ async fn every_setting_flag_reaches_the_request_as_applied() {
         ],
     );
     assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
-    let r: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
+    let r: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
     let st = &r["settings"];
     assert_eq!(st["batch_size"], 16);
     assert_eq!(
@@ -102,7 +113,10 @@ async fn every_setting_flag_reaches_the_request_as_applied() {
         serde_json::json!({"warmup": 2, "iterations": 7, "tolerance": 0.05})
     );
     assert_eq!(st["output"], "logits");
-    assert_eq!((st["temperature"].as_f64(), st["alpha"].as_f64()), (Some(2.0), Some(0.25)));
+    assert_eq!(
+        (st["temperature"].as_f64(), st["alpha"].as_f64()),
+        (Some(2.0), Some(0.25))
+    );
     assert_eq!(r["project"], "ridge-line");
     assert_eq!(r["teacher"]["model"]["name"], "fleet-teacher");
     assert_eq!(r["teacher"]["output_kind"], "logits");
@@ -111,12 +125,23 @@ async fn every_setting_flag_reaches_the_request_as_applied() {
 #[tokio::test]
 async fn an_output_per_model_names_models_by_their_file() {
     let s = Server::start(&[]);
-    let (t, st) = (file("mlp", "teacher.onnx"), file("mlp", "student_wide.onnx"));
+    let (t, st) = (
+        file("mlp", "teacher.onnx"),
+        file("mlp", "student_wide.onnx"),
+    );
     let per_teacher = format!("{t}=logits");
     let per_student = format!("{st}=logits");
     let out = submit(&s, &["--output", &per_teacher, "--output", &per_student]);
     assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
-    let unknown = submit(&s, &["--output", "elsewhere.onnx=logits", "--output", &per_student]);
+    let unknown = submit(
+        &s,
+        &[
+            "--output",
+            "elsewhere.onnx=logits",
+            "--output",
+            &per_student,
+        ],
+    );
     assert_eq!(unknown.status.code(), Some(2));
     assert!(text(&unknown.stderr).contains("is not a --teacher, --student or --baseline"));
 }

@@ -8,6 +8,7 @@ mod support;
 
 mod bad_inputs;
 mod baseline;
+mod bombs;
 mod evaluation;
 mod reference;
 mod timing;

@@ -4,14 +4,23 @@
 #[path = "../support/mod.rs"]
 mod support;
 
+mod access;
 mod errors;
 mod evaluations;
+mod fuzz;
 #[path = "../support/server.rs"]
 #[allow(dead_code)]
 mod harness;
+mod limits;
+mod load;
+#[path = "../support/mutate.rs"]
+mod mutate;
 mod openapi;
 mod projects;
 mod resilience;
 mod sandbox;
+mod stalls;
+mod storage;
+mod tls;
 mod upgrade;
 mod uploads;

@@ -163,3 +163,40 @@ async fn a_class_count_the_records_cannot_tell_is_checked_by_loading_the_models(
     assert_eq!(a.content_type, "application/problem+json");
     assert_eq!(a.body["detail"], proctor::error::GENERIC_DETAIL);
 }
+
+#[tokio::test]
+async fn a_cancel_between_the_claim_and_the_childs_start_keeps_the_child_from_running() {
+    // Held at `waiting`, a worker that has claimed the evaluation stops
+    // before it registers the cancel token and starts the child: the
+    // window in which a cancel used to find nothing to stop.
+    let s = Server::holding("waiting");
+    let teacher = s.model_id(&case_dir("mlp").join("teacher.onnx")).await;
+    let set = s.dataset_id(&case_dir("mlp").join("data.npz")).await;
+    let a = s
+        .create_evaluation(&json!({"teacher": teacher, "students": [teacher], "dataset": set}))
+        .await;
+    let id = a.body["id"].as_str().unwrap().to_string();
+    let start = std::time::Instant::now();
+    while s.evaluation(&id).await["status"] != "running" {
+        assert!(start.elapsed() < LONG, "never claimed");
+        tokio::time::sleep(Duration::from_millis(20)).await;
+    }
+    let canceled = s.delete(&format!("/v1/evaluations/{id}")).await;
+    assert_eq!(canceled.body["status"], "canceled", "{}", canceled.body);
+    s.release();
+    let log_path = s.data_dir().join("server.log");
+    loop {
+        let log = std::fs::read_to_string(&log_path).unwrap();
+        if log.contains("canceled before it started") {
+            break;
+        }
+        assert!(start.elapsed() < LONG, "the child ran anyway:\n{log}");
+        assert_eq!(
+            s.engine_processes(),
+            0,
+            "a child started for a canceled evaluation"
+        );
+        tokio::time::sleep(Duration::from_millis(20)).await;
+    }
+    assert_eq!(s.evaluation(&id).await["status"], "canceled");
+}

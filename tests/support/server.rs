@@ -14,6 +14,9 @@ pub struct Server {
     data_dir: PathBuf,
     _dir: Option<tempfile::TempDir>,
     client: reqwest::Client,
+    /// Who requests go out as, and which certificate they trust.
+    token: Option<String>,
+    ca_pem: Option<Vec<u8>>,
 }
 
 /// The variable and file of the service's test-only hold (src/sandbox/hold.rs).
@@ -23,6 +26,7 @@ const RELEASE_FILE: &str = "test-hold.release";
 /// A response: status, JSON body (Null when not JSON) and content type.
 pub struct Answer {
     pub status: u16,
+    pub headers: reqwest::header::HeaderMap,
     pub body: Value,
     pub content_type: String,
     pub location: Option<String>,
@@ -43,6 +47,14 @@ impl Server {
     pub fn holding(stage: &str) -> Server {
         let dir = tempfile::tempdir().unwrap();
         let mut s = Server::holding_in(dir.path(), stage);
+        s._dir = Some(dir);
+        s
+    }
+
+    /// `holding` with more `serve` flags.
+    pub fn holding_with(stage: &str, extra: &[&str]) -> Server {
+        let dir = tempfile::tempdir().unwrap();
+        let mut s = Server::launch(dir.path(), extra, Some(stage));
         s._dir = Some(dir);
         s
     }
@@ -97,7 +109,93 @@ impl Server {
             data_dir: data_dir.to_owned(),
             _dir: None,
             client: reqwest::Client::new(),
+            token: None,
+            ca_pem: None,
         }
+    }
+
+    /// Makes a token with `proctor token create` on this server's data dir
+    /// and returns its secret.
+    pub fn make_token(&self, name: &str, role: &str, project: &str) -> String {
+        let out = Command::new(env!("CARGO_BIN_EXE_proctor"))
+            .args([
+                "token",
+                "create",
+                name,
+                "--role",
+                role,
+                "--project",
+                project,
+            ])
+            .arg("--data-dir")
+            .arg(&self.data_dir)
+            .output()
+            .unwrap();
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        String::from_utf8(out.stdout).unwrap().trim().to_string()
+    }
+
+    /// `proctor token ARGS...` on this server's data dir.
+    pub fn token_command(&self, args: &[&str]) -> std::process::Output {
+        Command::new(env!("CARGO_BIN_EXE_proctor"))
+            .arg("token")
+            .args(args)
+            .arg("--data-dir")
+            .arg(&self.data_dir)
+            .output()
+            .unwrap()
+    }
+
+    /// Every later request carries this bearer token (none for `None`).
+    pub fn act_as(&mut self, token: Option<&str>) {
+        self.token = token.map(str::to_string);
+        self.rebuild_client();
+    }
+
+    /// Every later request trusts this PEM certificate (an HTTPS server's).
+    pub fn trust(&mut self, pem: &[u8]) {
+        self.ca_pem = Some(pem.to_vec());
+        self.rebuild_client();
+    }
+
+    fn rebuild_client(&mut self) {
+        let mut b = reqwest::Client::builder();
+        if let Some(t) = &self.token {
+            let mut h = reqwest::header::HeaderMap::new();
+            h.insert("authorization", format!("Bearer {t}").parse().unwrap());
+            b = b.default_headers(h);
+        }
+        if let Some(pem) = &self.ca_pem {
+            b = b.add_root_certificate(reqwest::Certificate::from_pem(pem).unwrap());
+        }
+        self.client = b.build().unwrap();
+    }
+
+    /// A request on this server's client, for headers the helpers do not set.
+    pub fn request(&self, method: reqwest::Method, path: &str) -> reqwest::RequestBuilder {
+        self.client.request(method, self.url(path))
+    }
+
+    /// Sends a request made with `request`.
+    pub async fn send_request(req: reqwest::RequestBuilder) -> Answer {
+        Self::send(req).await
+    }
+
+    /// The server's threads now, from /proc.
+    pub fn threads(&self) -> usize {
+        let pid = self.child.as_ref().map(Child::id).unwrap();
+        let status = std::fs::read_to_string(format!("/proc/{pid}/status")).unwrap();
+        status
+            .lines()
+            .find_map(|l| l.strip_prefix("Threads:"))
+            .unwrap()
+            .trim()
+            .parse()
+            .unwrap()
     }
 
     pub fn data_dir(&self) -> &Path {
@@ -180,10 +278,12 @@ impl Server {
         let content_type = header("content-type").unwrap_or_default();
         let location = header("location");
         let retry_after = header("retry-after");
+        let headers = res.headers().clone();
         let text = res.text().await.unwrap();
         let body = serde_json::from_str(&text).unwrap_or(Value::Null);
         Answer {
             status,
+            headers,
             body,
             content_type,
             location,
