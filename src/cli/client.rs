@@ -52,30 +52,29 @@ enum Repeat {
     Unprocessed,
 }
 
+/// A failed request and the errors beneath it, outermost first.
+fn causes(e: &reqwest::Error) -> impl Iterator<Item = &(dyn std::error::Error + 'static)> {
+    std::iter::successors(Some(e as &(dyn std::error::Error + 'static)), |c| {
+        c.source()
+    })
+}
+
 /// Whether a request failed because the server's certificate is not trusted.
 fn refused_certificate(e: &reqwest::Error) -> bool {
-    let mut cause: Option<&(dyn std::error::Error + 'static)> = Some(e);
-    while let Some(c) = cause {
-        if c.downcast_ref::<tokio_rustls::rustls::Error>().is_some()
+    causes(e).any(|c| {
+        c.downcast_ref::<tokio_rustls::rustls::Error>().is_some()
             || c.to_string().contains("certificate")
-        {
-            return true;
-        }
-        cause = c.source();
-    }
-    false
+    })
 }
 
 /// A failed request in words, down to its root cause: reqwest's own text
 /// ("error sending request") hides whether it was DNS, a refused
 /// connection or a certificate the client does not trust.
 fn network(e: reqwest::Error) -> ClientError {
-    let mut why = e.to_string();
-    let mut cause = std::error::Error::source(&e);
-    while let Some(c) = cause {
-        why = format!("{why}: {c}");
-        cause = c.source();
-    }
+    let why = causes(&e)
+        .map(|c| c.to_string())
+        .collect::<Vec<_>>()
+        .join(": ");
     let hint = if why.contains("certificate") {
         "; for a certificate a private authority signed, pass --ca-cert FILE"
     } else {

@@ -38,7 +38,7 @@ fn named(name: &str, role: &str) -> String {
 /// In words, not colour: how many gates pass; the failures are listed below.
 pub fn gate_text(c: &Candidate) -> String {
     let total = c.gates.checks.len();
-    let failed = c.gates.checks.iter().filter(|k| !k.passed).count();
+    let failed = c.gates.failed().count();
     match (total, failed) {
         (0, _) => "no gates".into(),
         (t, 0) => format!("pass {t}/{t}"),
@@ -189,7 +189,7 @@ fn failures(r: &Report) -> Vec<(String, String)> {
     r.candidates
         .iter()
         .flat_map(|c| {
-            c.gates.checks.iter().filter(|k| !k.passed).map(|k| {
+            c.gates.failed().map(|k| {
                 (
                     c.model.name.clone(),
                     failure_text(

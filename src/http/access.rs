@@ -131,7 +131,7 @@ pub async fn identify(
             axum::response::Redirect::to(&format!("/signin?next={next}")).into_response()
         }
         Err(e) => {
-            drain(req.into_body()).await;
+            crate::service::drain(&mut req.into_body().into_data_stream()).await;
             e.into_response()
         }
     }
@@ -147,18 +147,6 @@ fn url_encoded(v: &str) -> String {
             _ => format!("%{b:02X}"),
         })
         .collect()
-}
-
-/// The most of a refused request's body read before answering.
-const DRAIN_BYTES: usize = 8 << 20;
-const DRAIN_TIME: std::time::Duration = std::time::Duration::from_secs(2);
-
-/// Reads (and drops) a modest body before a refusal goes out: an HTTP/1
-/// client still sending its upload would otherwise see the connection
-/// reset instead of the 401 or 403 that says what to fix.
-async fn drain(body: Body) {
-    let limited = axum::body::to_bytes(body, DRAIN_BYTES);
-    let _ = tokio::time::timeout(DRAIN_TIME, limited).await;
 }
 
 async fn caller(

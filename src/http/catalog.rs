@@ -7,7 +7,7 @@ use axum::http::{HeaderMap, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 
 use super::access::Who;
-use super::extract::{QueryMap, path_id};
+use super::extract::{QueryMap, media_type, path_id};
 use crate::error::AppError;
 use crate::service::{App, Uploaded};
 use crate::store::{DatasetRecord, ModelRecord};
@@ -32,11 +32,7 @@ fn upload_name(q: &QueryMap) -> Result<String, AppError> {
 /// Uploads are raw bytes; a form's text/plain or urlencoded body is not one
 /// (and is what a page elsewhere could send without asking first).
 fn raw_upload(headers: &HeaderMap) -> Result<(), AppError> {
-    let kind = headers
-        .get(header::CONTENT_TYPE)
-        .and_then(|v| v.to_str().ok())
-        .unwrap_or("");
-    let essence = kind.split(';').next().unwrap_or("").trim();
+    let (essence, kind) = media_type(headers);
     if matches!(essence, "application/octet-stream" | "application/zip") {
         Ok(())
     } else {

@@ -19,18 +19,23 @@ pub(super) const MAX_JSON_BYTES: usize = 1 << 20;
 /// with `field` naming where.
 pub(super) struct JsonBody<T>(pub T);
 
+/// A request's `Content-Type`: its type and subtype without parameters,
+/// and the whole header ("" when absent), for messages.
+pub(super) fn media_type(headers: &axum::http::HeaderMap) -> (&str, &str) {
+    let whole = headers
+        .get(axum::http::header::CONTENT_TYPE)
+        .and_then(|v| v.to_str().ok())
+        .unwrap_or("");
+    (whole.split(';').next().unwrap_or("").trim(), whole)
+}
+
 impl<S: Send + Sync, T: DeserializeOwned> FromRequest<S> for JsonBody<T> {
     type Rejection = AppError;
 
     async fn from_request(req: Request<Body>, _: &S) -> Result<Self, AppError> {
-        let kind = req
-            .headers()
-            .get(axum::http::header::CONTENT_TYPE)
-            .and_then(|v| v.to_str().ok())
-            .unwrap_or("");
         // A form's text/plain body is what a page elsewhere can send
         // without asking first; JSON must say it is JSON.
-        let essence = kind.split(';').next().unwrap_or("").trim();
+        let (essence, kind) = media_type(req.headers());
         if !essence.eq_ignore_ascii_case("application/json") {
             return Err(AppError::UnsupportedMediaType(format!(
                 "send the body as content-type application/json, not '{kind}'"

@@ -37,13 +37,7 @@ pub fn candidates_csv(r: &Report) -> String {
     let mut w = csv::Writer::from_writer(Vec::new());
     w.write_record(COLUMNS).expect("writing to memory");
     for c in &r.candidates {
-        let failed: Vec<&str> = c
-            .gates
-            .checks
-            .iter()
-            .filter(|k| !k.passed)
-            .map(|k| k.gate.as_str())
-            .collect();
+        let failed: Vec<&str> = c.gates.failed().map(|k| k.gate.as_str()).collect();
         let acc = c.accuracy.as_ref();
         let v = c.versus_baseline.as_ref();
         let row = [

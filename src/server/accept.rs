@@ -10,6 +10,7 @@ use hyper_util::rt::{TokioExecutor, TokioIo, TokioTimer};
 use hyper_util::server::conn::auto::Builder;
 use hyper_util::server::graceful::GracefulShutdown;
 use hyper_util::service::TowerToHyperService;
+use tokio::io::{AsyncRead, AsyncWrite};
 use tokio::net::TcpListener;
 use tokio::task::JoinSet;
 use tokio_rustls::TlsAcceptor;
@@ -22,6 +23,10 @@ pub(super) const HEADER_READ: Duration = Duration::from_secs(10);
 /// How long a stop waits for requests in flight (a long upload among them)
 /// before it drops them.
 pub(super) const SHUTDOWN_DEADLINE: Duration = Duration::from_secs(10);
+
+/// A client's byte stream, plain or TLS, served the same way.
+trait Connection: AsyncRead + AsyncWrite + Unpin + Send {}
+impl<T: AsyncRead + AsyncWrite + Unpin + Send> Connection for T {}
 
 /// Serves `router` on `listener` until `stop`, then drains.
 pub(super) async fn serve(
@@ -60,24 +65,19 @@ pub(super) async fn serve(
         let watcher = graceful.watcher();
         let tls = tls.clone();
         connections.spawn(async move {
-            let served = match tls {
-                None => {
-                    let conn =
-                        builder.serve_connection_with_upgrades(TokioIo::new(stream), service);
-                    watcher.watch(conn.into_owned()).await
-                }
+            let io: Box<dyn Connection> = match tls {
+                None => Box::new(stream),
                 Some(tls) => {
                     let handshake = tokio::time::timeout(HEADER_READ, tls.accept(stream)).await;
                     let Ok(Ok(stream)) = handshake else {
                         tracing::debug!(%peer, "a TLS handshake failed or stalled");
                         return;
                     };
-                    let conn =
-                        builder.serve_connection_with_upgrades(TokioIo::new(stream), service);
-                    watcher.watch(conn.into_owned()).await
+                    Box::new(stream)
                 }
             };
-            if let Err(e) = served {
+            let conn = builder.serve_connection_with_upgrades(TokioIo::new(io), service);
+            if let Err(e) = watcher.watch(conn.into_owned()).await {
                 tracing::debug!(%peer, error = %e, "a connection ended with an error");
             }
         });

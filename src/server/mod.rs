@@ -11,14 +11,12 @@ use anyhow::Context;
 use tokio::task::JoinHandle;
 use tokio_util::sync::CancellationToken;
 
-use crate::http::access::{AccessConfig, AuthMode};
-use crate::service::Housekeeping;
-
 use crate::config::ServeArgs;
 use crate::engine::Options;
+use crate::http::access::{AccessConfig, AuthMode};
 use crate::queue::Workers;
 use crate::sandbox::{Hold, Limits, Sandbox, SandboxConfig};
-use crate::service::{App, ServiceConfig};
+use crate::service::{App, Housekeeping, ServiceConfig};
 use crate::store::Store;
 
 /// The wall-time limit of one check (an upload's inspection, a preflight).

@@ -8,7 +8,7 @@ use time::OffsetDateTime;
 use tokio_util::sync::CancellationToken;
 
 use super::App;
-use crate::store::blobs_stale_after;
+use crate::store::BLOBS_STALE_AFTER;
 
 #[derive(Debug, Clone, Default)]
 pub struct Housekeeping {
@@ -26,7 +26,7 @@ impl App {
         match self
             .store
             .blobs
-            .sweep_incoming(Some(blobs_stale_after()))
+            .sweep_incoming(Some(BLOBS_STALE_AFTER))
             .await
         {
             Ok(0) => {}

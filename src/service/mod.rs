@@ -15,6 +15,7 @@ pub use dashboard::{EvaluationView, ListView, ReportView, TeacherView};
 pub use evaluations::{BaselineChoice, EvaluationRequest, ListQuery};
 pub use housekeeping::Housekeeping;
 pub use projects::SetBaseline;
+pub(crate) use uploads::drain;
 pub use uploads::{Upload, Uploaded};
 
 use std::sync::Arc;

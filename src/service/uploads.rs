@@ -31,14 +31,15 @@ pub(crate) const MIN_FREE: u64 = 1 << 30;
 /// Free space is checked again after every this many bytes received.
 const RECHECK_EVERY: u64 = 64 << 20;
 
-/// The most of a refused upload's body read before the refusal goes out.
+/// The most of a refused request's body read before the refusal goes out.
 const DRAIN_BYTES: u64 = 8 << 20;
 const DRAIN_TIME: Duration = Duration::from_secs(2);
 
-/// Reads and drops a little more of a refused upload before answering: an
-/// HTTP/1 client still sending would otherwise have its connection reset,
-/// and with it the answer that says why, when the rest arrives unread.
-async fn drained<S, E>(body: &mut S, refusal: AppError) -> AppError
+/// Reads and drops a little more of a refused request's body before the
+/// refusal goes out: an HTTP/1 client still sending would otherwise have
+/// its connection reset, and with it the answer that says why, when the
+/// rest arrives unread.
+pub(crate) async fn drain<S, E>(body: &mut S)
 where
     S: Stream<Item = Result<Bytes, E>> + Unpin,
 {
@@ -52,6 +53,14 @@ where
         }
     };
     let _ = tokio::time::timeout(DRAIN_TIME, read).await;
+}
+
+/// `refusal`, once the body is drained.
+async fn drained<S, E>(body: &mut S, refusal: AppError) -> AppError
+where
+    S: Stream<Item = Result<Bytes, E>> + Unpin,
+{
+    drain(body).await;
     refusal
 }
 

@@ -65,7 +65,7 @@ const IN_FLIGHT: usize = 16;
 
 /// Temporary files untouched for this long belong to no live upload (an
 /// upload writes as it streams; a check runs for minutes at most).
-pub(super) const STALE_AFTER: Duration = Duration::from_secs(3600);
+pub const STALE_AFTER: Duration = Duration::from_secs(3600);
 
 fn write_and_hash(
     path: &Path,

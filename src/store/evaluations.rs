@@ -22,8 +22,7 @@ fn record(row: Option<EvaluationRow>) -> Result<Option<EvaluationRecord>, StoreE
 
 impl Store {
     /// Stores a new queued evaluation with its students and tags in one
-    /// transaction, so a worker never sees half of it.
-    /// Queues an evaluation; `Err(id)` inside when one of the models or
+    /// transaction, so a worker never sees half of it; `Err(id)` inside when one of the models or
     /// the set it names was deleted meanwhile, in which case nothing is
     /// stored. The check runs inside the insert's write transaction, and a
     /// delete checks for users inside its own, so one of the two always
@@ -70,26 +69,20 @@ impl Store {
             .execute(&mut *tx)
             .await?;
         }
-        let models = std::iter::once(r.teacher)
-            .chain(r.students.iter().copied())
-            .chain(r.baseline);
-        for id in models {
-            let (deleted,): (bool,) =
-                sqlx::query_as("SELECT deleted_at IS NOT NULL FROM models WHERE id = ?1")
-                    .bind(id)
-                    .fetch_one(&mut *tx)
-                    .await?;
-            if deleted {
-                return Ok(Err(id));
-            }
-        }
-        let (deleted,): (bool,) =
-            sqlx::query_as("SELECT deleted_at IS NOT NULL FROM datasets WHERE id = ?1")
-                .bind(r.dataset)
-                .fetch_one(&mut *tx)
-                .await?;
-        if deleted {
-            return Ok(Err(r.dataset));
+        // The students are read back from the rows just written.
+        let deleted: Option<(Uuid,)> = sqlx::query_as(
+            "SELECT id FROM models WHERE deleted_at IS NOT NULL AND (id IN (?1, ?2) OR id IN \
+             (SELECT model_id FROM evaluation_students WHERE evaluation_id = ?3)) \
+             UNION ALL SELECT id FROM datasets WHERE deleted_at IS NOT NULL AND id = ?4 LIMIT 1",
+        )
+        .bind(r.teacher)
+        .bind(r.baseline)
+        .bind(e.id)
+        .bind(r.dataset)
+        .fetch_optional(&mut *tx)
+        .await?;
+        if let Some((gone,)) = deleted {
+            return Ok(Err(gone));
         }
         tx.commit().await?;
         let record = self.evaluation(e.id).await?.ok_or_else(|| {

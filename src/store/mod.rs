@@ -60,12 +60,7 @@ use sqlx::sqlite::{
 };
 use uuid::Uuid;
 
-pub use blobs::{BlobKind, Blobs, Incoming, Received};
-
-/// How long a temporary upload file may sit untouched before a sweep takes it.
-pub fn blobs_stale_after() -> Duration {
-    blobs::STALE_AFTER
-}
+pub use blobs::{BlobKind, Blobs, Incoming, Received, STALE_AFTER as BLOBS_STALE_AFTER};
 pub use dashboard::{EvaluationRow, TrendPoint};
 pub use error::StoreError;
 pub use projects::{BaselineRecord, NewBaseline, Project, ProjectSummary};

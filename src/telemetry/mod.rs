@@ -28,7 +28,7 @@ pub struct Telemetry {
 #[derive(Debug, Default)]
 struct Counts {
     /// (method, route pattern, status) → requests.
-    http: BTreeMap<(String, String, u16), u64>,
+    http: BTreeMap<(&'static str, &'static str, u16), u64>,
     /// kind ("model" | "dataset") → (uploads stored, bytes received).
     uploads: BTreeMap<&'static str, (u64, u64)>,
     /// outcome → run time of evaluations this process ran.
@@ -52,11 +52,11 @@ impl Telemetry {
         self.inner.lock().unwrap_or_else(|p| p.into_inner())
     }
 
-    pub fn request(&self, method: &str, route: &str, status: u16) {
+    pub fn request(&self, method: &'static str, route: &'static str, status: u16) {
         *self
             .counts()
             .http
-            .entry((method.to_string(), route.to_string(), status))
+            .entry((method, route, status))
             .or_default() += 1;
     }
 

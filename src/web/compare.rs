@@ -268,13 +268,7 @@ fn gate_words(c: &Candidate) -> String {
     } else if c.gates.passed {
         format!("passes all {}", c.gates.checks.len())
     } else {
-        let failed: Vec<&str> = c
-            .gates
-            .checks
-            .iter()
-            .filter(|k| !k.passed)
-            .map(|k| k.gate.as_str())
-            .collect();
+        let failed: Vec<&str> = c.gates.failed().map(|k| k.gate.as_str()).collect();
         format!("fails {}", failed.join(", "))
     }
 }

@@ -36,6 +36,13 @@ pub struct GateOutcome {
     pub checks: Vec<GateCheck>,
 }
 
+impl GateOutcome {
+    /// The checks that failed, in gate order.
+    pub fn failed(&self) -> impl Iterator<Item = &GateCheck> {
+        self.checks.iter().filter(|k| !k.passed)
+    }
+}
+
 /// Judges every gate for one candidate.
 pub fn judge(gates: &Gates, candidate: &Candidate, evidence: &Evidence<'_>) -> GateOutcome {
     let checks: Vec<GateCheck> = gates

@@ -47,7 +47,7 @@ fn gates_cell(c: &Candidate, r: &Report) -> Markup {
             span.pass { "passes all " (c.gates.checks.len()) }
         } @else {
             ul.fail {
-                @for k in c.gates.checks.iter().filter(|k| !k.passed) {
+                @for k in c.gates.failed() {
                     li {
                         "fails " (gate_name(k.gate))
                         @if let Some(at) = &k.at { " at " (at_text(k.gate, at, names)) }
