@@ -12,6 +12,7 @@ use std::time::{Duration, Instant};
 
 use proctor::engine::bulk;
 use proctor::engine::dataset::EvalSet;
+use proctor::engine::environment::logical_cores;
 use proctor::engine::feed::Feed;
 use proctor::engine::logits::{OutputKindChoice, to_logits};
 use proctor::engine::metrics::accuracy::{StudentInputs, accuracy, student_accuracy};
@@ -143,27 +144,32 @@ fn bench_bulk_overhead(case: &str, model: &str, batch: usize) -> Duration {
         }
         bare.push(t.elapsed().as_secs_f64() / (reps * batch) as f64);
     }
-    let never = || false;
-    let mut pass = Vec::new();
     let mut total_engine = Duration::ZERO;
-    for _ in 0..5 {
-        let t = Instant::now();
-        let mut samples = 0;
-        while samples < reps * batch {
-            let r = bulk::run(&prepared, &set, batch, &never, &|_| {})
-                .unwrap()
-                .unwrap();
-            total_engine += r.engine_time;
-            samples += n;
+    let mut pass_on = |threads: usize| {
+        let mut pass = Vec::new();
+        for _ in 0..5 {
+            let t = Instant::now();
+            let mut samples = 0;
+            while samples < reps * batch {
+                let r = bulk::run(&prepared, &set, batch, threads, &|_| {}).unwrap();
+                total_engine += r.engine_time;
+                samples += n;
+            }
+            pass.push(t.elapsed().as_secs_f64() / samples as f64);
         }
-        pass.push(t.elapsed().as_secs_f64() / samples as f64);
-    }
-    let (bare, pass) = (median(bare), median(pass));
+        median(pass)
+    };
+    let (one, every) = (pass_on(1), pass_on(logical_cores()));
+    let bare = median(bare);
     println!(
-        "bulk pass {case}/{model} batch {batch}: {:.2} us/sample, bare tract {:.2} us/sample, ratio {:.3}",
-        pass * 1e6,
+        "bulk pass {case}/{model} batch {batch}: 1 thread {:.2} us/sample (bare tract {:.2}, ratio {:.3}); \
+         {} threads {:.2} us/sample, {:.2}x the one-thread throughput",
+        one * 1e6,
         bare * 1e6,
-        pass / bare
+        one / bare,
+        logical_cores(),
+        every * 1e6,
+        one / every
     );
     total_engine
 }

@@ -11,6 +11,7 @@ use sha2::{Digest, Sha256};
 use tokio::io::AsyncReadExt;
 use uuid::Uuid;
 
+use super::bundle::{Bundle, bundle_if_needed};
 use super::connection::ServerArgs;
 use crate::problem::Problem;
 use crate::report::Report;
@@ -144,12 +145,19 @@ pub async fn sha256_of(path: &Path) -> std::io::Result<String> {
 pub trait Stored: DeserializeOwned {
     const PATH: &'static str;
     fn id(&self) -> Uuid;
+    /// The bundle to send instead of the file itself, if the file needs one.
+    fn bundle(_path: &Path) -> Result<Option<Bundle>, ClientError> {
+        Ok(None)
+    }
 }
 
 impl Stored for ModelRecord {
     const PATH: &'static str = "/v1/models";
     fn id(&self) -> Uuid {
         self.id
+    }
+    fn bundle(path: &Path) -> Result<Option<Bundle>, ClientError> {
+        bundle_if_needed(path).map_err(ClientError::Input)
     }
 }
 
@@ -263,7 +271,12 @@ impl Client {
     /// Streams a file to the server and returns the stored record. An
     /// upload is idempotent (the same bytes are one record), so a broken
     /// one is sent again from the start.
-    pub async fn upload<T: Stored>(&self, path: &Path, name: &str) -> Result<T, ClientError> {
+    pub async fn upload<T: Stored>(
+        &self,
+        path: &Path,
+        name: &str,
+        media_type: &str,
+    ) -> Result<T, ClientError> {
         let url = self.url(T::PATH);
         let build = || {
             let file = std::fs::File::open(path)
@@ -277,7 +290,7 @@ impl Client {
                 .http
                 .post(&url)
                 .query(&[("name", name)])
-                .header("content-type", "application/octet-stream")
+                .header("content-type", media_type)
                 .body(reqwest::Body::wrap_stream(stream));
             if let Some(len) = len {
                 req = req.header("content-length", len);
@@ -295,13 +308,24 @@ impl Client {
         path: &Path,
         name: &str,
     ) -> Result<(Uuid, bool), ClientError> {
-        let sha = sha256_of(path)
+        let given = path.to_owned();
+        let bundle = tokio::task::spawn_blocking(move || T::bundle(&given))
             .await
-            .map_err(|e| ClientError::Input(format!("cannot read {}: {e}", path.display())))?;
+            .map_err(|e| ClientError::Input(format!("building the bundle failed: {e}")))??;
+        let (sha, send, media_type) = match &bundle {
+            Some(b) => (b.sha256.clone(), b.zip.as_ref(), "application/zip"),
+            None => (
+                sha256_of(path).await.map_err(|e| {
+                    ClientError::Input(format!("cannot read {}: {e}", path.display()))
+                })?,
+                path,
+                "application/octet-stream",
+            ),
+        };
         if let Some(found) = self.find::<T>(&sha).await? {
             return Ok((found.id(), false));
         }
-        let record: T = self.upload(path, name).await?;
+        let record: T = self.upload(send, name, media_type).await?;
         Ok((record.id(), true))
     }
 

@@ -6,6 +6,7 @@
 //! renderings of a report (table, Markdown, JUnit XML, CSV).
 
 pub mod adopt;
+pub mod bundle;
 pub mod client;
 pub mod connection;
 pub mod demo;

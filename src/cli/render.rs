@@ -301,6 +301,13 @@ pub fn table(r: &Report) -> String {
         ));
         out.extend(aligned(VERSUS_HEADERS, &versus_rows(r), &[0]));
     }
+    let notes = r.model_notes();
+    if !notes.is_empty() {
+        out.push("notes:".into());
+        for (model, note) in notes {
+            out.push(format!("  {model}: {note}"));
+        }
+    }
     out.push(gates_line(r));
     let failed = failures(r);
     if !failed.is_empty() {

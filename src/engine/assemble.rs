@@ -18,11 +18,12 @@ use crate::report::{
     Size, TeacherEntry, TeacherSize, VersusBaseline,
 };
 
-fn summary(m: &ModelRef) -> ModelSummary {
+fn summary(m: &ModelRef, prepared: &Prepared) -> ModelSummary {
     ModelSummary {
         id: m.id,
         name: m.name.clone(),
         sha256: m.sha256.clone(),
+        notes: prepared.model.info.notes.clone(),
     }
 }
 
@@ -102,7 +103,7 @@ pub fn assemble(
         .map(
             |(((b, ix), f), rounds): (((&ModelRef, usize), StudentFigures), &[f64])| {
                 BaselineEntry {
-                    model: summary(b),
+                    model: summary(b, &setup.models[ix]),
                     output: setup.models[ix].output_name.clone(),
                     output_kind: f.kind,
                     fidelity: f.fidelity,
@@ -123,7 +124,7 @@ pub fn assemble(
             let m = &setup.models[ix];
             let mut c = Candidate {
                 rank: 0,
-                model: summary(student),
+                model: summary(student, m),
                 output: m.output_name.clone(),
                 output_kind: f.kind,
                 fidelity: f.fidelity,
@@ -158,7 +159,7 @@ pub fn assemble(
         project: job.project.clone(),
         created_at: job.created_at,
         finished_at: OffsetDateTime::now_utc(),
-        environment: Environment::current(bulk_threads),
+        environment: Environment::current(bulk_threads, timed_kernels(setup)),
         settings: ReportSettings {
             temperature: s.temperature,
             alpha: s.alpha,
@@ -177,7 +178,7 @@ pub fn assemble(
             class_names: setup.set.class_names().map(<[String]>::to_vec),
         },
         teacher: TeacherEntry {
-            model: summary(&job.teacher),
+            model: summary(&job.teacher, teacher_model),
             output: teacher_model.output_name.clone(),
             output_kind: figures.teacher_kind,
             accuracy: figures.teacher_accuracy,
@@ -190,4 +191,18 @@ pub fn assemble(
         verdict,
         recommended,
     }
+}
+
+/// The matrix-multiply kernels of every model's batch-1 plan, the plans
+/// the timed rounds ran.
+fn timed_kernels(setup: &Setup) -> Vec<String> {
+    let mut names: Vec<String> = setup
+        .models
+        .iter()
+        .filter_map(|m| m.plan(1).ok())
+        .flat_map(|p| p.matmul_kernels())
+        .collect();
+    names.sort();
+    names.dedup();
+    names
 }

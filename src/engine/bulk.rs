@@ -1,6 +1,7 @@
 //! The bulk pass: one model over the whole set at the evaluation's batch
 //! size, keeping only its scores [N, C] and the time spent in engine calls.
 
+use std::sync::Mutex;
 use std::time::{Duration, Instant};
 
 use tract_onnx::prelude::*;
@@ -18,70 +19,105 @@ pub struct BulkScores {
     pub engine_time: Duration,
 }
 
-/// Batches read ahead of the engine: reading and decompressing the set
-/// overlaps inference instead of adding to it.
+/// Batches read ahead of each engine thread: reading and decompressing the
+/// set overlaps inference instead of adding to it.
 const READ_AHEAD: usize = 2;
 
-/// Runs `m` over the whole set; `stop` is raised when another model of the
-/// same pass failed, so that this one gives up early.
+/// One batch on its way to an engine thread: its index and its inputs.
+type Batch = (usize, EngineResult<Vec<Tensor>>);
+
+/// Runs `m` over the whole set with `threads` engine threads taking batches
+/// in turn (plans are shared; every call has its own state), so one large
+/// model keeps every core busy.
 pub fn run(
     m: &Prepared,
     set: &EvalSet,
     batch: usize,
-    stop: &(dyn Fn() -> bool + Sync),
+    threads: usize,
     tick: &(dyn Fn(u64) + Sync),
-) -> EngineResult<Option<BulkScores>> {
+) -> EngineResult<BulkScores> {
     let n = set.samples();
+    let batches = n.div_ceil(batch.max(1));
+    let threads = threads.clamp(1, batches.max(1));
     let mut feed = Feed::open(set, &m.binding)?;
-    let mut raw = Scores::new(m.classes);
-    raw.data.reserve(n * m.classes);
-    let mut engine_time = Duration::ZERO;
+    let outputs: Mutex<Vec<Option<Vec<f64>>>> = Mutex::new(vec![None; batches]);
+    let engine_time = Mutex::new(Duration::ZERO);
+    let failed: Mutex<Option<EngineError>> = Mutex::new(None);
+    let gave_up = || lock(&failed).is_some();
+    let (tx, rx) = std::sync::mpsc::sync_channel::<Batch>(READ_AHEAD * threads);
+    // Taken by the engine threads in turn; dropped by the first that gives
+    // up, which ends the reader (its send fails) and the other threads.
+    let rx = Mutex::new(Some(rx));
+    let next = || {
+        let mut rx = lock(&rx);
+        if gave_up() {
+            *rx = None;
+        }
+        rx.as_ref().and_then(|r| r.recv().ok())
+    };
+    let give_up = |e: EngineError| {
+        lock(&failed).get_or_insert(e);
+        *lock(&rx) = None;
+    };
     std::thread::scope(|scope| {
-        let (tx, rx) = std::sync::mpsc::sync_channel::<EngineResult<Vec<Tensor>>>(READ_AHEAD);
         scope.spawn(move || {
-            let mut read = 0;
-            while read < n {
-                let rows = batch.min(n - read);
+            for ix in 0..batches {
+                let rows = batch.min(n - ix * batch);
                 let next = feed.next_tensors(rows);
-                let failed = next.is_err();
-                // A closed channel means the engine side stopped; so do we.
-                if tx.send(next).is_err() || failed {
+                let broken = next.is_err();
+                if tx.send((ix, next)).is_err() || broken {
                     return;
                 }
-                read += rows;
             }
         });
-        let mut done = 0;
-        while done < n {
-            if stop() {
-                return Ok(false);
-            }
-            let rows = batch.min(n - done);
-            let plan = m.plan(rows)?;
-            let tensors = rx.recv().map_err(|_| {
-                EngineError::InvalidDataset("the evaluation set ended early".into())
-            })??;
-            let inputs: TVec<TValue> = tensors.into_iter().map(Tensor::into_tvalue).collect();
-            let started = Instant::now();
-            let out = plan.run(inputs)?;
-            engine_time += started.elapsed();
-            append_scores(m, &out, rows, done, &mut raw)?;
-            done += rows;
-            tick(rows as u64);
+        for _ in 0..threads {
+            scope.spawn(|| {
+                while let Some((ix, tensors)) = next() {
+                    let rows = batch.min(n - ix * batch);
+                    let scored = tensors.and_then(|tensors| {
+                        let plan = m.plan(rows)?;
+                        let inputs: TVec<TValue> =
+                            tensors.into_iter().map(Tensor::into_tvalue).collect();
+                        let started = Instant::now();
+                        let out = plan.run(inputs)?;
+                        *lock(&engine_time) += started.elapsed();
+                        batch_scores(m, &out, rows)
+                    });
+                    match scored {
+                        Ok(values) => {
+                            lock(&outputs)[ix] = Some(values);
+                            tick(rows as u64);
+                        }
+                        Err(e) => return give_up(e),
+                    }
+                }
+            });
         }
-        Ok(true)
+    });
+    if let Some(e) = failed.into_inner().unwrap_or_else(|p| p.into_inner()) {
+        return Err(e);
+    }
+    let outputs = outputs.into_inner().unwrap_or_else(|p| p.into_inner());
+    let mut raw = Scores::new(m.classes);
+    raw.data.reserve(n * m.classes);
+    for values in outputs {
+        let values = values
+            .ok_or_else(|| EngineError::InvalidDataset("the evaluation set ended early".into()))?;
+        raw.push_rows(&values);
+    }
+    refuse_non_finite(m, &raw.data)?;
+    Ok(BulkScores {
+        raw,
+        engine_time: engine_time.into_inner().unwrap_or_else(|p| p.into_inner()),
     })
-    .map(|finished| finished.then_some(BulkScores { raw, engine_time }))
 }
 
-/// Checks one batch's output and appends it as f64 rows.
-pub(crate) fn append_scores(
-    m: &Prepared,
-    out: &Tensor,
-    rows: usize,
-    first_sample: usize,
-    into: &mut Scores,
-) -> EngineResult<()> {
+fn lock<T>(m: &Mutex<T>) -> std::sync::MutexGuard<'_, T> {
+    m.lock().unwrap_or_else(|p| p.into_inner())
+}
+
+/// Checks one batch's output and returns it as f64 rows.
+pub(crate) fn batch_scores(m: &Prepared, out: &Tensor, rows: usize) -> EngineResult<Vec<f64>> {
     let shape = out.shape();
     let bad = |what: String| EngineError::BadOutput(format!("{} '{}': {what}", m.role, m.label));
     if shape.first() != Some(&rows) || class_count(shape).ok() != Some(m.classes) {
@@ -99,19 +135,22 @@ pub(crate) fn append_scores(
     let cast = out.cast_to::<f64>().map_err(|e| bad(e.to_string()))?;
     let plain = cast.try_as_plain_ram().map_err(|e| bad(e.to_string()))?;
     let values = plain.as_slice::<f64>().map_err(|e| bad(e.to_string()))?;
-    // metrics.md, "Outputs that are not finite": the evaluation fails
-    // naming the model, the first such sample and its value.
-    if let Some(i) = values.iter().position(|v| !v.is_finite()) {
-        return Err(EngineError::BadOutput(format!(
+    Ok(values.to_vec())
+}
+
+/// metrics.md, "Outputs that are not finite": the evaluation fails naming
+/// the model, the first such sample and its value.
+pub(crate) fn refuse_non_finite(m: &Prepared, values: &[f64]) -> EngineResult<()> {
+    match values.iter().position(|v| !v.is_finite()) {
+        None => Ok(()),
+        Some(i) => Err(EngineError::BadOutput(format!(
             "{} '{}' gave {} for sample {}",
             m.role,
             m.label,
             non_finite_name(values[i]),
-            first_sample + i / m.classes
-        )));
+            i / m.classes
+        ))),
     }
-    into.push_rows(values);
-    Ok(())
 }
 
 /// NaN, inf or -inf, as numpy prints them.

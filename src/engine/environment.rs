@@ -5,7 +5,7 @@ use serde::{Deserialize, Serialize};
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Threads {
-    /// Threads running models at once in the bulk pass.
+    /// Engine threads in the bulk pass, sharing each model's batches.
     pub bulk: usize,
     /// Threads in the timed rounds (always 1: one sample, one model at a time).
     pub timing: usize,
@@ -15,6 +15,33 @@ pub struct Threads {
 pub struct EngineVersion {
     pub name: String,
     pub version: String,
+    /// Which of the engine's kernel families ran: the machine's instruction
+    /// set as the engine sees it (e.g. "x86_64 avx512") and the
+    /// matrix-multiply kernels the timed plans picked. Another CPU picks
+    /// others, and runs at another speed. Absent from reports stored before
+    /// the engine said.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub kernels: Option<Kernels>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Kernels {
+    /// The instruction-set step the engine dispatches on, after its
+    /// architecture, and the features it found.
+    pub isa: String,
+    /// Names of the matrix-multiply kernels in the models' timed plans.
+    pub matmul: Vec<String>,
+}
+
+impl Kernels {
+    pub fn of_this_machine(matmul: Vec<String>) -> Kernels {
+        let isa = tract_onnx::tract_core::tract_linalg::isa::native();
+        let arch = isa.arch().map_or("generic".to_string(), |a| a.to_string());
+        Kernels {
+            isa: format!("{arch} {} ({isa:?})", isa.nickname()),
+            matmul,
+        }
+    }
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -34,7 +61,7 @@ pub fn logical_cores() -> usize {
 }
 
 impl Environment {
-    pub fn current(bulk_threads: usize) -> Environment {
+    pub fn current(bulk_threads: usize, matmul_kernels: Vec<String>) -> Environment {
         Environment {
             cpu: cpu_model(),
             logical_cores: logical_cores(),
@@ -45,6 +72,7 @@ impl Environment {
             engine: EngineVersion {
                 name: "tract".into(),
                 version: TRACT_VERSION.into(),
+                kernels: Some(Kernels::of_this_machine(matmul_kernels)),
             },
             service_version: env!("CARGO_PKG_VERSION").into(),
             os: os_name(),

@@ -3,8 +3,7 @@
 //! gates and ranking. The bulk pass shares the CPU with other evaluations;
 //! the timed rounds hold it alone; scoring needs no lock.
 
-use std::sync::Mutex;
-use std::sync::atomic::{AtomicBool, AtomicU64, AtomicUsize, Ordering};
+use std::sync::atomic::{AtomicU64, Ordering};
 use std::time::{Duration, Instant};
 
 use tract_onnx::prelude::*;
@@ -98,14 +97,7 @@ pub fn evaluate(job: &Job, options: &Options, hooks: &Hooks<'_>) -> EngineResult
 
     let scores = score(job, &setup, &results, hooks);
     let throughput = |ix: usize| n as f64 / results[ix].engine_time.as_secs_f64().max(1e-12);
-    let mut report = assemble(
-        job,
-        &setup,
-        scores,
-        &per_entry,
-        throughput,
-        threads.min(setup.models.len()),
-    );
+    let mut report = assemble(job, &setup, scores, &per_entry, throughput, threads);
     clock.lap(Stage::Scoring);
     report.timings = clock.times(job);
     if let Some(path) = crate::report::first_non_finite(&report) {
@@ -168,7 +160,8 @@ fn transpose(per_entry: &[Vec<f64>]) -> Vec<Vec<f64>> {
         .collect()
 }
 
-/// Runs every model that needs it over the set, `threads` models at a time.
+/// Runs every model that needs it over the set, one model after another,
+/// each on `threads` engine threads.
 fn run_bulk(
     setup: &Setup,
     batch: usize,
@@ -182,35 +175,16 @@ fn run_bulk(
         .collect();
     let total = n * todo.len() as u64;
     let done = AtomicU64::new(0);
-    let next = AtomicUsize::new(0);
-    let failed = AtomicBool::new(false);
-    let results: Mutex<Vec<Option<EngineResult<Option<BulkScores>>>>> =
-        Mutex::new((0..setup.models.len()).map(|_| None).collect());
     (hooks.progress)(Stage::Bulk, 0, total);
-    let stop = || failed.load(Ordering::Relaxed);
     let tick = |rows: u64| {
         let d = done.fetch_add(rows, Ordering::Relaxed) + rows;
         (hooks.progress)(Stage::Bulk, d, total);
     };
-    std::thread::scope(|scope| {
-        for _ in 0..threads.clamp(1, todo.len().max(1)) {
-            scope.spawn(|| {
-                while let Some(&ix) = todo.get(next.fetch_add(1, Ordering::Relaxed)) {
-                    let m = &setup.models[ix];
-                    let r = bulk::run(m, &setup.set, m.bulk_batch(batch, n as usize), &stop, &tick);
-                    if r.is_err() {
-                        failed.store(true, Ordering::Relaxed);
-                    }
-                    results.lock().unwrap_or_else(|p| p.into_inner())[ix] = Some(r);
-                }
-            });
-        }
-    });
-    let results = results.into_inner().unwrap_or_else(|p| p.into_inner());
-    // The first error in model order; models stopped because of it have none.
-    let mut out = Vec::with_capacity(results.len());
-    for r in results {
-        out.push(r.transpose()?.flatten());
+    let mut out: Vec<Option<BulkScores>> = (0..setup.models.len()).map(|_| None).collect();
+    for ix in todo {
+        let m = &setup.models[ix];
+        let batch = m.bulk_batch(batch, n as usize);
+        out[ix] = Some(bulk::run(m, &setup.set, batch, threads, &tick)?);
     }
     Ok(out)
 }
@@ -275,14 +249,5 @@ pub fn model_scores(
         .file_name()
         .map_or("model".into(), |f| f.to_string_lossy().into_owned());
     let p = Prepared::new("model", label, m, &set, output)?;
-    let never = || false;
-    bulk::run(
-        &p,
-        &set,
-        p.bulk_batch(batch, set.samples()),
-        &never,
-        &|_| {},
-    )?
-    .map(|b| b.raw)
-    .ok_or_else(|| EngineError::InvalidModel("the bulk pass stopped".into()))
+    bulk::run(&p, &set, p.bulk_batch(batch, set.samples()), 1, &|_| {}).map(|b| b.raw)
 }

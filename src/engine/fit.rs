@@ -401,6 +401,8 @@ mod tests {
                 vec![sym("batch"), Dim::Fixed(4)],
             )],
             outputs,
+            external_data: 0,
+            notes: Vec::new(),
         }
     }
 

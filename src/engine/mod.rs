@@ -12,6 +12,7 @@
 
 pub mod assemble;
 pub mod bulk;
+pub mod bundle;
 pub mod cache;
 pub mod dataset;
 pub mod environment;
@@ -26,6 +27,8 @@ pub mod logits;
 pub mod metrics;
 pub mod model;
 pub mod npy;
+pub mod operators;
+pub mod quantized;
 pub mod ranking;
 pub mod scoring;
 pub mod settings;
@@ -46,6 +49,20 @@ pub fn inspect_model(path: &Path) -> EngineResult<model::ModelInfo> {
     let m = model::Model::load(path)?;
     m.plan(1, &Default::default(), 0)?;
     Ok(m.info)
+}
+
+/// The upload inspection of a zip bundle: its model with the data inlined
+/// is inspected as a plain upload would be, then written to `out` for the
+/// service to store.
+pub fn inspect_bundle(bundle: &Path, out: &Path) -> EngineResult<model::ModelInfo> {
+    let inlined = bundle::inline(bundle)?;
+    let m = model::Model::from_bytes(&inlined.bytes)?;
+    m.plan(1, &Default::default(), 0)?;
+    std::fs::write(out, &inlined.bytes)
+        .map_err(EngineError::io("writing the self-contained model"))?;
+    let mut info = m.info;
+    info.external_data = inlined.external_data;
+    Ok(info)
 }
 
 /// The upload inspection of an evaluation set: headers, lengths, labels,

@@ -3,7 +3,7 @@
 //! Every call into tract is guarded: malformed graphs can make it panic, and a
 //! panic must become a typed error, never a crash. Tensors stored as ONNX
 //! external data are refused before tract sees the model, so Proctor never
-//! reads a file that a model names.
+//! reads a file that a model names (bundles are inlined first, in `bundle`).
 
 use std::collections::HashMap;
 use std::panic::{AssertUnwindSafe, catch_unwind};
@@ -15,9 +15,11 @@ use tract_onnx::pb;
 use tract_onnx::prelude::*;
 use tract_onnx::tract_core::ops::Cost;
 
+use super::bundle::{for_each_tensor, is_external};
 use super::error::{EngineError, EngineResult};
 use super::fit::{Classes, OutputFacts, Scored, choose_output};
 use super::logits::class_count;
+use super::{operators, quantized};
 
 /// One axis of a tensor: a size, or the name of a symbolic dimension.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
@@ -47,6 +49,14 @@ pub struct ModelInfo {
     pub producer: String,
     pub inputs: Vec<TensorSpec>,
     pub outputs: Vec<TensorSpec>,
+    /// Bytes the upload held outside the graph as ONNX external data (a
+    /// bundle's data files), 0 for a self-contained upload.
+    #[serde(default)]
+    pub external_data: u64,
+    /// What a reader of the model's figures should know about how the
+    /// engine runs it, e.g. that its latency reflects float emulation.
+    #[serde(default)]
+    pub notes: Vec<String>,
 }
 
 /// How the first axis of a model's inputs may be filled.
@@ -107,20 +117,21 @@ impl Model {
     }
 
     pub fn from_bytes(bytes: &[u8]) -> EngineResult<Model> {
-        let proto = guarded("not an ONNX model", || {
+        let mut proto = guarded("not an ONNX model", || {
             tract_onnx::onnx().proto_model_for_read(&mut &*bytes)
         })?;
-        let graph = proto
-            .graph
-            .as_ref()
-            .ok_or_else(|| invalid("the ONNX model has no graph"))?;
-        refuse_external_data(graph)?;
-        if graph.node.iter().any(|n| n.op_type == "ZipMap") {
-            return Err(invalid(
-                "the model ends in ZipMap, which the engine cannot run: export it without ZipMap \
-                 (e.g. skl2onnx options {'zipmap': False}) or name a tensor output",
-            ));
-        }
+        refuse_external_data(&mut proto)?;
+        operators::check(
+            proto
+                .graph
+                .as_ref()
+                .ok_or_else(|| invalid("the ONNX model has no graph"))?,
+        )?;
+        // Counted on the model as uploaded, before any rewrite.
+        let parameters = count_parameters(proto.graph.as_ref().expect("checked above"));
+        quantized::fold(&mut proto);
+        let notes = quantized::notes(&proto);
+        let graph = proto.graph.as_ref().expect("checked above");
         let initializers: std::collections::HashSet<&str> =
             graph.initializer.iter().map(|t| t.name.as_str()).collect();
         let declared: Vec<&pb::ValueInfoProto> = graph
@@ -158,7 +169,7 @@ impl Model {
         let batch = batch_axis(&typed, &shapes)?;
         let outputs = output_specs(&typed)?;
         let info = ModelInfo {
-            parameters: count_parameters(graph),
+            parameters,
             macs: None,
             opset: proto
                 .opset_import
@@ -174,6 +185,8 @@ impl Model {
             .to_string(),
             inputs,
             outputs,
+            external_data: 0,
+            notes,
         };
         let mut model = Model { info, typed, batch };
         model.info.macs = model.macs_per_sample(&HashMap::new());
@@ -328,6 +341,22 @@ impl Model {
 }
 
 impl Plan {
+    /// The matrix-multiply kernels the engine picked for this plan.
+    pub fn matmul_kernels(&self) -> Vec<String> {
+        use tract_onnx::tract_core::ops::matmul::optimized::OptMatMul;
+        let mut names: Vec<String> = self
+            .runnable
+            .model()
+            .nodes()
+            .iter()
+            .filter_map(|n| n.op_as::<OptMatMul>())
+            .flat_map(|op| op.mmm.iter().map(|k| k.name().to_string()))
+            .collect();
+        names.sort();
+        names.dedup();
+        names
+    }
+
     /// Runs the plan once on a full batch of inputs.
     pub fn run(&self, inputs: TVec<TValue>) -> EngineResult<Tensor> {
         let mut out = guarded("the engine failed while running the model", || {
@@ -513,35 +542,18 @@ fn count_parameters(graph: &pb::GraphProto) -> u64 {
         .sum()
 }
 
-/// Refuses any tensor, at any depth of the graph, stored as external data.
-fn refuse_external_data(graph: &pb::GraphProto) -> EngineResult<()> {
-    let external = |t: &pb::TensorProto| {
-        t.data_location == Some(pb::tensor_proto::DataLocation::External as i32)
-            || !t.external_data.is_empty()
-    };
-    let refuse = |t: &pb::TensorProto| {
-        Err(invalid(format!(
-            "tensor '{}' is stored as ONNX external data; Proctor reads only self-contained \
-             models: save with onnx.save(model, path, save_as_external_data=False)",
-            t.name
-        )))
-    };
-    for t in &graph.initializer {
-        if external(t) {
-            return refuse(t);
+/// Refuses any tensor, at any depth of the model, stored as external data:
+/// a plain upload is one file, and the engine never opens a path a model names.
+fn refuse_external_data(proto: &mut pb::ModelProto) -> EngineResult<()> {
+    for_each_tensor(proto, &mut |t| {
+        if is_external(t) {
+            return Err(invalid(format!(
+                "tensor '{}' is stored as ONNX external data: send the model as a zip bundle \
+                 (content-type application/zip) holding the .onnx file and its data files; \
+                 `proctor submit` builds it from the model's folder",
+                t.name
+            )));
         }
-    }
-    for node in &graph.node {
-        for attr in &node.attribute {
-            for t in attr.t.iter().chain(&attr.tensors) {
-                if external(t) {
-                    return refuse(t);
-                }
-            }
-            for g in attr.g.iter().chain(&attr.graphs) {
-                refuse_external_data(g)?;
-            }
-        }
-    }
-    Ok(())
+        Ok(())
+    })
 }

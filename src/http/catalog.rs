@@ -29,15 +29,28 @@ fn upload_name(q: &QueryMap) -> Result<String, AppError> {
     Ok(name)
 }
 
+/// How an upload's bytes are sent.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Sent {
+    /// One file as it is.
+    Raw,
+    /// A zip archive: for a model, a bundle of the `.onnx` file and its
+    /// external data (an `.npz` set is a zip archive itself).
+    Zip,
+}
+
 /// Uploads are raw bytes; a form's text/plain or urlencoded body is not one
 /// (and is what a page elsewhere could send without asking first).
-fn raw_upload(headers: &HeaderMap) -> Result<(), AppError> {
+fn raw_upload(headers: &HeaderMap) -> Result<Sent, AppError> {
     let (essence, kind) = media_type(headers);
-    if matches!(essence, "application/octet-stream" | "application/zip") {
-        Ok(())
+    if essence.eq_ignore_ascii_case("application/octet-stream") {
+        Ok(Sent::Raw)
+    } else if essence.eq_ignore_ascii_case("application/zip") {
+        Ok(Sent::Zip)
     } else {
         Err(AppError::UnsupportedMediaType(format!(
-            "send the file as content-type application/octet-stream, not '{kind}'"
+            "send the file as content-type application/octet-stream (or application/zip for \
+             a model bundle), not '{kind}'"
         )))
     }
 }
@@ -59,15 +72,19 @@ pub(super) async fn upload_model(
     headers: HeaderMap,
     body: Body,
 ) -> Result<Response, AppError> {
-    raw_upload(&headers)?;
-    let up = app
-        .upload::<ModelRecord, _, _>(
-            upload_name(&q)?,
-            body.into_data_stream(),
-            declared_length(&headers),
-            &caller,
-        )
-        .await?;
+    let sent = raw_upload(&headers)?;
+    let (name, body, len) = (
+        upload_name(&q)?,
+        body.into_data_stream(),
+        declared_length(&headers),
+    );
+    let up = match sent {
+        Sent::Raw => {
+            app.upload::<ModelRecord, _, _>(name, body, len, &caller)
+                .await?
+        }
+        Sent::Zip => app.upload_bundle(name, body, len, &caller).await?,
+    };
     let location = format!("/v1/models/{}", up.record.id);
     Ok(uploaded(up, location))
 }
@@ -100,6 +117,7 @@ pub(super) async fn upload_dataset(
     headers: HeaderMap,
     body: Body,
 ) -> Result<Response, AppError> {
+    // An .npz set is itself a zip archive, so either media type reads it.
     raw_upload(&headers)?;
     let up = app
         .upload::<DatasetRecord, _, _>(

@@ -91,6 +91,10 @@ pub struct ModelSummary {
     pub id: Uuid,
     pub name: String,
     pub sha256: String,
+    /// The model's notes (see `ModelInfo::notes`), e.g. that its latency
+    /// reflects float emulation; left out when there are none.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub notes: Vec<String>,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -244,5 +248,17 @@ impl Verdict {
         [Verdict::Go, Verdict::NoGo]
             .into_iter()
             .find(|v| v.as_str() == s)
+    }
+}
+
+impl Report {
+    /// Every model's notes as (model name, note): teacher, baseline, then
+    /// the candidates in rank order.
+    pub fn model_notes(&self) -> Vec<(&str, &str)> {
+        std::iter::once(&self.teacher.model)
+            .chain(self.baseline.iter().map(|b| &b.model))
+            .chain(self.candidates.iter().map(|c| &c.model))
+            .flat_map(|m| m.notes.iter().map(|n| (m.name.as_str(), n.as_str())))
+            .collect()
     }
 }

@@ -51,6 +51,9 @@ pub fn run_from_stdin() -> i32 {
 fn run(task: Task, out: &Mutex<std::io::Stdout>) -> EngineResult<Message> {
     match task {
         Task::InspectModel { path } => Ok(Message::Model(Box::new(engine::inspect_model(&path)?))),
+        Task::InspectBundle { bundle, out } => Ok(Message::Model(Box::new(
+            engine::inspect_bundle(&bundle, &out)?,
+        ))),
         Task::InspectDataset { path } => Ok(Message::Dataset(engine::inspect_dataset(&path)?)),
         Task::Preflight { job } => engine::prepare(&job).map(|_| Message::Preflighted),
         Task::Evaluate {

@@ -100,6 +100,23 @@ impl Sandbox {
         }
     }
 
+    /// Inlines an uploaded zip bundle's data into a self-contained model at
+    /// `out` and inspects it as `inspect_model` would.
+    pub async fn inspect_bundle(
+        &self,
+        bundle: &Path,
+        out: &Path,
+    ) -> Result<ModelInfo, SandboxError> {
+        let task = Task::InspectBundle {
+            bundle: bundle.to_owned(),
+            out: out.to_owned(),
+        };
+        match self.check(&task).await? {
+            Message::Model(info) => Ok(*info),
+            other => Err(unexpected(&other)),
+        }
+    }
+
     /// Reads an uploaded evaluation set's headers, lengths and labels.
     pub async fn inspect_dataset(&self, path: &Path) -> Result<DatasetInfo, SandboxError> {
         let task = Task::InspectDataset {

@@ -17,6 +17,11 @@ pub(super) enum Task {
     InspectModel {
         path: PathBuf,
     },
+    /// Inlines a zip bundle's external data into `out` and inspects it.
+    InspectBundle {
+        bundle: PathBuf,
+        out: PathBuf,
+    },
     InspectDataset {
         path: PathBuf,
     },

@@ -7,6 +7,7 @@ use std::time::{Duration, Instant};
 use bytes::Bytes;
 use futures_util::{Stream, StreamExt};
 use time::OffsetDateTime;
+use tokio::sync::OwnedSemaphorePermit;
 use uuid::Uuid;
 
 use super::{App, Caller};
@@ -150,9 +151,8 @@ impl App {
     }
 
     /// Stores an upload of kind `K`: streamed and hashed, answered from the
-    /// store when the same bytes are already there (restoring the file if it
-    /// had gone missing from disk), else inspected by the engine and
-    /// recorded. At most `--max-uploads` stream at once.
+    /// store when the same bytes are already there, else inspected by the
+    /// engine and recorded.
     pub async fn upload<K: Upload, S, E>(
         &self,
         name: String,
@@ -164,11 +164,57 @@ impl App {
         S: Stream<Item = Result<Bytes, E>> + Unpin,
         E: std::fmt::Display,
     {
+        let (_slot, received) = self.admit::<K, _, _>(body, declared_len, caller).await?;
+        self.keep(name, received, None).await
+    }
+
+    /// Stores a model sent as a zip bundle: the engine inlines the data its
+    /// tensors name and inspects the result, and the self-contained model
+    /// is what is stored and hashed, so the same weights exported twice
+    /// are one model.
+    pub async fn upload_bundle<S, E>(
+        &self,
+        name: String,
+        body: S,
+        declared_len: Option<u64>,
+        caller: &Caller,
+    ) -> Result<Uploaded<ModelRecord>, AppError>
+    where
+        S: Stream<Item = Result<Bytes, E>> + Unpin,
+        E: std::fmt::Display,
+    {
+        let (_slot, bundle) = self
+            .admit::<ModelRecord, _, _>(body, declared_len, caller)
+            .await?;
+        // The inlined model takes about as much room again as the bundle.
+        self.room_for(bundle.bytes).await?;
+        let scratch = self.store.blobs.scratch();
+        let info = self
+            .sandbox
+            .inspect_bundle(bundle.path(), scratch.path())
+            .await?;
+        drop(bundle);
+        let model = self.store.blobs.seal(scratch).await?;
+        self.keep(name, model, Some(info)).await
+    }
+
+    /// Checks the caller's role, takes one of `--max-uploads` slots and
+    /// streams the body in; the slot is held until the upload is kept.
+    async fn admit<K: Upload, S, E>(
+        &self,
+        body: S,
+        declared_len: Option<u64>,
+        caller: &Caller,
+    ) -> Result<(OwnedSemaphorePermit, Received), AppError>
+    where
+        S: Stream<Item = Result<Bytes, E>> + Unpin,
+        E: std::fmt::Display,
+    {
         let mut body = body;
         if let Err(e) = caller.may(Role::Submitter, None, "uploading") {
             return Err(drained(&mut body, e).await);
         }
-        let Ok(_slot) = self.uploads.clone().try_acquire_owned() else {
+        let Ok(slot) = self.uploads.clone().try_acquire_owned() else {
             let busy = AppError::Unavailable {
                 detail: "the service is receiving as many uploads as it takes at once; try again \
                          shortly"
@@ -179,6 +225,18 @@ impl App {
         };
         let received = self.receive(body, declared_len).await?;
         self.telemetry.upload(K::BLOB.folder(), received.bytes);
+        Ok((slot, received))
+    }
+
+    /// Answers from the store when the same bytes are already there
+    /// (restoring the file if it had gone missing from disk), else records
+    /// the upload, inspecting it first unless that was done.
+    async fn keep<K: Upload>(
+        &self,
+        name: String,
+        received: Received,
+        inspected: Option<K::Info>,
+    ) -> Result<Uploaded<K>, AppError> {
         if let Some(existing) = K::stored(&self.store, &received.sha256).await? {
             if !self.store.blobs.exists(K::BLOB, &received.sha256).await? {
                 tracing::warn!(sha256 = %received.sha256, "a stored file was missing; restored from this upload");
@@ -189,7 +247,10 @@ impl App {
                 created: false,
             });
         }
-        let info = K::inspect(&self.sandbox, received.path()).await?;
+        let info = match inspected {
+            Some(info) => info,
+            None => K::inspect(&self.sandbox, received.path()).await?,
+        };
         let record = K::record(name, &received, info);
         self.store.blobs.commit(K::BLOB, received).await?;
         let (record, created) = K::insert(&self.store, &record).await?;

@@ -100,6 +100,28 @@ impl Received {
     }
 }
 
+/// A path where uploads land, for a file that another process writes (a
+/// bundle's self-contained model); removed when dropped, unless sealed.
+pub struct Scratch {
+    file: TempFile,
+}
+
+impl Scratch {
+    pub fn path(&self) -> &Path {
+        &self.file.path
+    }
+}
+
+/// Hashes a finished file and makes it durable, as `write_and_hash` does
+/// for a streamed one.
+fn hash_file(path: &Path) -> std::io::Result<(String, u64)> {
+    let mut file = std::fs::File::open(path)?;
+    let mut hasher = Sha256::new();
+    let bytes = std::io::copy(&mut file, &mut hasher)?;
+    file.sync_all()?;
+    Ok((hex::encode(hasher.finalize()), bytes))
+}
+
 /// Makes a rename in `dir` durable.
 async fn sync_dir(dir: &Path) -> std::io::Result<()> {
     let dir = dir.to_owned();
@@ -150,6 +172,28 @@ impl Blobs {
             bytes: 0,
             chunks,
             writer,
+        })
+    }
+
+    pub fn scratch(&self) -> Scratch {
+        Scratch {
+            file: TempFile {
+                path: self.incoming_dir().join(uuid::Uuid::now_v7().to_string()),
+                keep: false,
+            },
+        }
+    }
+
+    /// A scratch file, once written, as a received upload.
+    pub async fn seal(&self, scratch: Scratch) -> Result<Received, StoreError> {
+        let path = scratch.file.path.clone();
+        let (sha256, bytes) = tokio::task::spawn_blocking(move || hash_file(&path))
+            .await
+            .map_err(StoreError::Writer)??;
+        Ok(Received {
+            file: scratch.file,
+            sha256,
+            bytes,
         })
     }
 

@@ -60,7 +60,7 @@ use sqlx::sqlite::{
 };
 use uuid::Uuid;
 
-pub use blobs::{BlobKind, Blobs, Incoming, Received, STALE_AFTER as BLOBS_STALE_AFTER};
+pub use blobs::{BlobKind, Blobs, Incoming, Received, STALE_AFTER as BLOBS_STALE_AFTER, Scratch};
 pub use dashboard::{EvaluationRow, TrendPoint};
 pub use error::StoreError;
 pub use projects::{BaselineRecord, NewBaseline, Project, ProjectSummary};

@@ -66,6 +66,7 @@ impl From<BaselineRow> for BaselineRecord {
                 id: r.model_id,
                 name: r.name,
                 sha256: r.sha256,
+                notes: Vec::new(),
             },
             set_at: r.set_at,
             set_by: r.set_by,

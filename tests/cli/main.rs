@@ -326,3 +326,54 @@ fn the_demo_recommends_the_distilled_student_and_a_slice_gate_stops_the_wide_one
     );
     assert!(Path::new(dir.path()).join("proctor.db").exists());
 }
+
+#[tokio::test]
+async fn a_torch_export_with_external_data_is_sent_as_a_bundle_of_the_files_it_names() {
+    // The exporter's folder holds the .onnx and its .data file; a stray
+    // entry beside them must not be read (a dangling link fails any read).
+    let dir = tempfile::tempdir().unwrap();
+    for folder in ["teacher", "student_small"] {
+        let to = dir.path().join(folder);
+        std::fs::create_dir(&to).unwrap();
+        for entry in std::fs::read_dir(case_dir("torch_external").join(folder)).unwrap() {
+            let from = entry.unwrap().path();
+            std::fs::copy(&from, to.join(from.file_name().unwrap())).unwrap();
+        }
+    }
+    std::os::unix::fs::symlink("/nonexistent/old.data", dir.path().join("teacher/old.data"))
+        .unwrap();
+    let s = Server::start(&[]);
+    let (t, st, d) = (
+        dir.path().join("teacher/teacher.onnx"),
+        dir.path().join("student_small/student_small.onnx"),
+        file("torch_external", "data.npz"),
+    );
+    let args = [
+        "submit",
+        "--server",
+        &s.base,
+        "--teacher",
+        t.to_str().unwrap(),
+        "--student",
+        st.to_str().unwrap(),
+        "--data",
+        &d,
+    ];
+    let out = proctor(&args);
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    let models = s.get("/v1/models").await.body;
+    let want = &support::expected("torch_external")["models"];
+    for m in models["items"].as_array().unwrap() {
+        let stem = m["name"].as_str().unwrap().trim_end_matches(".onnx");
+        assert_eq!(m["external_data"], want[stem]["external_data"], "{m}");
+    }
+    // A second submit finds both models by the hash of the self-contained
+    // file it computes itself, and uploads nothing.
+    let again = proctor(&args);
+    assert_eq!(again.status.code(), Some(0), "{}", text(&again.stderr));
+    assert!(
+        !text(&again.stderr).contains("uploaded"),
+        "{}",
+        text(&again.stderr)
+    );
+}

@@ -10,5 +10,6 @@ mod bad_inputs;
 mod baseline;
 mod bombs;
 mod evaluation;
+mod exports;
 mod reference;
 mod timing;

@@ -7,6 +7,7 @@ mod support;
 mod access;
 mod errors;
 mod evaluations;
+mod exports;
 mod fuzz;
 #[path = "../support/server.rs"]
 #[allow(dead_code)]

@@ -339,6 +339,15 @@ impl Server {
         .await
     }
 
+    /// Uploads a zip bundle (a model and its ONNX external data).
+    pub async fn upload_bundle(&self, file: &Path, name: &str) -> Answer {
+        let req = self
+            .client
+            .post(self.url(&format!("/v1/models?name={name}")))
+            .header("content-type", "application/zip");
+        Self::send(req.body(std::fs::read(file).unwrap())).await
+    }
+
     pub async fn upload_dataset(&self, file: &Path, name: &str) -> Answer {
         self.post_bytes(
             &format!("/v1/datasets?name={name}"),

@@ -69,6 +69,7 @@ pub(crate) fn candidate() -> Candidate {
             id: uuid::Uuid::nil(),
             name: "s".into(),
             sha256: "0".into(),
+            notes: Vec::new(),
         },
         output: "logits".into(),
         output_kind: crate::engine::logits::OutputKind::Logits,

@@ -50,10 +50,26 @@ fn settings(r: &Report) -> Markup {
     }
 }
 
+/// What the engine says about how some models ran (e.g. float emulation of
+/// quantized operators), next to the figures it qualifies.
+fn model_notes(r: &Report) -> Markup {
+    let notes = r.model_notes();
+    html! {
+        @if !notes.is_empty() {
+            ul #model-notes {
+                @for (model, note) in notes {
+                    li { strong { (model) } ": " (note) }
+                }
+            }
+        }
+    }
+}
+
 fn report_sections(r: &Report, classes: Option<Uuid>) -> Markup {
     html! {
         h2 { "Candidates" }
         (candidates::table(r))
+        (model_notes(r))
         (versus::section(r))
         h2 { "Quality against latency" }
         div.charts { (quality::scatter_of(r)) }

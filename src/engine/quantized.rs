@@ -1,0 +1,293 @@
+//! Quantized models in the QDQ format, as onnxruntime's quantizer writes
+//! them: each quantized operator is a float operator between
+//! DequantizeLinear and QuantizeLinear nodes. Run as written, tract computes
+//! those in float, so an int8 student is timed slower than its float twin.
+//!
+//! `fold` rewrites the common form of a quantized convolution, DQ(x), DQ(w),
+//! DQ(int32 bias) → Conv → Q, into the standard QLinearConv, which tract runs
+//! on integer kernels; an integer runtime does the same rewrite. What cannot
+//! be folded is named in the model's notes, since its latency then reflects
+//! float emulation.
+
+use std::collections::{HashMap, HashSet};
+
+use tract_onnx::pb;
+
+/// Operators whose quantized form is the QDQ pattern around them.
+const COMPUTE: [&str; 4] = ["Conv", "ConvTranspose", "MatMul", "Gemm"];
+
+/// What `fold` did.
+#[derive(Debug, Default, Clone, PartialEq, Eq)]
+pub struct Folded {
+    /// Convolutions now run as QLinearConv.
+    pub convolutions: usize,
+}
+
+fn float_data(t: &pb::TensorProto) -> Option<Vec<f32>> {
+    if t.data_type != pb::tensor_proto::DataType::Float as i32 {
+        return None;
+    }
+    if !t.float_data.is_empty() {
+        return Some(t.float_data.clone());
+    }
+    t.raw_data.len().is_multiple_of(4).then(|| {
+        t.raw_data
+            .chunks_exact(4)
+            .map(|b| f32::from_le_bytes([b[0], b[1], b[2], b[3]]))
+            .collect()
+    })
+}
+
+fn int_data(t: &pb::TensorProto) -> Option<Vec<i64>> {
+    use pb::tensor_proto::DataType as D;
+    let raw = &t.raw_data;
+    let from_raw: Option<Vec<i64>> = match D::try_from(t.data_type).ok()? {
+        D::Int8 => Some(raw.iter().map(|&b| b as i8 as i64).collect()),
+        D::Uint8 => Some(raw.iter().map(|&b| b as i64).collect()),
+        D::Int32 => Some(
+            raw.chunks_exact(4)
+                .map(|b| i32::from_le_bytes([b[0], b[1], b[2], b[3]]) as i64)
+                .collect(),
+        ),
+        _ => return None,
+    };
+    if raw.is_empty() {
+        Some(t.int32_data.iter().map(|&v| v as i64).collect())
+    } else {
+        from_raw
+    }
+}
+
+fn attr_int(node: &pb::NodeProto, name: &str) -> Option<i64> {
+    node.attribute.iter().find(|a| a.name == name).map(|a| a.i)
+}
+
+/// The graph's names: who makes each value, who reads it.
+struct Index<'g> {
+    producer: HashMap<&'g str, usize>,
+    readers: HashMap<&'g str, usize>,
+    initializers: HashMap<&'g str, &'g pb::TensorProto>,
+    outputs: HashSet<&'g str>,
+}
+
+impl<'g> Index<'g> {
+    fn of(g: &'g pb::GraphProto) -> Index<'g> {
+        let mut producer = HashMap::new();
+        let mut readers: HashMap<&str, usize> = HashMap::new();
+        for (i, n) in g.node.iter().enumerate() {
+            for o in &n.output {
+                producer.insert(o.as_str(), i);
+            }
+            for input in &n.input {
+                *readers.entry(input.as_str()).or_default() += 1;
+            }
+            // A subgraph may read any outer value: count those reads too.
+            for a in &n.attribute {
+                for sub in a.g.iter().chain(&a.graphs) {
+                    for sn in &sub.node {
+                        for input in &sn.input {
+                            *readers.entry(input.as_str()).or_default() += 1;
+                        }
+                    }
+                }
+            }
+        }
+        Index {
+            producer,
+            readers,
+            initializers: g.initializer.iter().map(|t| (t.name.as_str(), t)).collect(),
+            outputs: g.output.iter().map(|o| o.name.as_str()).collect(),
+        }
+    }
+
+    /// The DequantizeLinear node making `value`, with its scale and zero
+    /// point given (QLinearConv needs both).
+    fn dequantized(&self, g: &'g pb::GraphProto, value: &str) -> Option<&'g pb::NodeProto> {
+        let n = &g.node[*self.producer.get(value)?];
+        (n.op_type == "DequantizeLinear" && n.input.len() == 3 && n.domain.is_empty()).then_some(n)
+    }
+
+    fn floats(&self, name: &str) -> Option<Vec<f32>> {
+        float_data(self.initializers.get(name)?)
+    }
+
+    fn ints(&self, name: &str) -> Option<Vec<i64>> {
+        int_data(self.initializers.get(name)?)
+    }
+}
+
+/// The QLinearConv that replaces `conv` and its QuantizeLinear, and the
+/// index of that QuantizeLinear; `None` when the pattern is not exact.
+fn fold_one(
+    g: &pb::GraphProto,
+    ix: &Index<'_>,
+    conv: &pb::NodeProto,
+) -> Option<(pb::NodeProto, usize)> {
+    if conv.input.len() < 2 || conv.output.len() != 1 {
+        return None;
+    }
+    let y = conv.output[0].as_str();
+    if ix.outputs.contains(y) || ix.readers.get(y) != Some(&1) {
+        return None;
+    }
+    let q_ix = g
+        .node
+        .iter()
+        .position(|n| n.input.first().map(String::as_str) == Some(y))?;
+    let q = &g.node[q_ix];
+    if q.op_type != "QuantizeLinear" || q.input.len() != 3 || !q.domain.is_empty() {
+        return None;
+    }
+    let dx = ix.dequantized(g, &conv.input[0])?;
+    let dw = ix.dequantized(g, &conv.input[1])?;
+    // Activations quantized per tensor; weights per tensor or per output
+    // channel (axis 0; DequantizeLinear's default axis is 1).
+    if ix.floats(&dx.input[1])?.len() != 1 || ix.floats(&q.input[1])?.len() != 1 {
+        return None;
+    }
+    if ix.floats(&dw.input[1])?.len() != 1 && attr_int(dw, "axis") != Some(0) {
+        return None;
+    }
+    ix.initializers.get(dw.input[0].as_str())?;
+    let mut inputs = vec![
+        dx.input[0].clone(),
+        dx.input[1].clone(),
+        dx.input[2].clone(),
+        dw.input[0].clone(),
+        dw.input[1].clone(),
+        dw.input[2].clone(),
+        q.input[1].clone(),
+        q.input[2].clone(),
+    ];
+    if let Some(b) = conv.input.get(2).filter(|b| !b.is_empty()) {
+        // QLinearConv's bias is int32 at scale x_scale * w_scale, zero point 0.
+        let db = ix.dequantized(g, b).or_else(|| {
+            let n = &g.node[*ix.producer.get(b.as_str())?];
+            (n.op_type == "DequantizeLinear" && n.input.len() == 2).then_some(n)
+        })?;
+        let bias = ix.initializers.get(db.input[0].as_str())?;
+        if bias.data_type != pb::tensor_proto::DataType::Int32 as i32 {
+            return None;
+        }
+        if let Some(zp) = db.input.get(2)
+            && ix.ints(zp)?.iter().any(|&z| z != 0)
+        {
+            return None;
+        }
+        let xs = ix.floats(&dx.input[1])?[0];
+        let ws = ix.floats(&dw.input[1])?;
+        let bs = ix.floats(&db.input[1])?;
+        let matches = |i: usize| {
+            let w = if ws.len() == 1 { ws[0] } else { ws[i] };
+            let b = if bs.len() == 1 { bs[0] } else { bs[i] };
+            ((xs * w) - b).abs() <= 1e-6 * b.abs().max(f32::MIN_POSITIVE)
+        };
+        if !(0..ws.len().max(bs.len())).all(matches) {
+            return None;
+        }
+        inputs.push(db.input[0].clone());
+    }
+    let node = pb::NodeProto {
+        input: inputs,
+        output: q.output.clone(),
+        name: format!("{}_int8", conv.name),
+        op_type: "QLinearConv".into(),
+        domain: String::new(),
+        attribute: conv.attribute.clone(),
+        doc_string: String::new(),
+    };
+    Some((node, q_ix))
+}
+
+/// Rewrites QDQ convolutions of the main graph into QLinearConv, then drops
+/// DequantizeLinear nodes that nothing reads any more.
+pub fn fold(model: &mut pb::ModelProto) -> Folded {
+    let Some(g) = model.graph.as_mut() else {
+        return Folded::default();
+    };
+    let mut replaced: Vec<(usize, pb::NodeProto, usize)> = Vec::new();
+    {
+        let ix = Index::of(g);
+        for (i, n) in g.node.iter().enumerate() {
+            if n.op_type == "Conv"
+                && n.domain.is_empty()
+                && let Some((node, q)) = fold_one(g, &ix, n)
+            {
+                replaced.push((i, node, q));
+            }
+        }
+    }
+    let folded = Folded {
+        convolutions: replaced.len(),
+    };
+    if replaced.is_empty() {
+        return folded;
+    }
+    let mut drop: HashSet<usize> = HashSet::new();
+    for (i, node, q) in replaced {
+        g.node[i] = node;
+        drop.insert(q);
+    }
+    let mut ix = 0;
+    g.node.retain(|_| {
+        ix += 1;
+        !drop.contains(&(ix - 1))
+    });
+    // Dequantized weights and biases the convolutions read are now unread.
+    loop {
+        let read: HashSet<String> = g
+            .node
+            .iter()
+            .flat_map(|n| n.input.iter().cloned())
+            .chain(g.output.iter().map(|o| o.name.clone()))
+            .collect();
+        let before = g.node.len();
+        g.node.retain(|n| {
+            n.op_type != "DequantizeLinear" || n.output.iter().any(|o| read.contains(o))
+        });
+        if g.node.len() == before {
+            break;
+        }
+    }
+    folded
+}
+
+/// What the model's readers should know about its quantized operators:
+/// those left between DequantizeLinear and QuantizeLinear run in float.
+pub fn notes(model: &pb::ModelProto) -> Vec<String> {
+    let Some(g) = model.graph.as_ref() else {
+        return Vec::new();
+    };
+    let ix = Index::of(g);
+    let emulated: Vec<&str> = g
+        .node
+        .iter()
+        .filter(|n| COMPUTE.contains(&n.op_type.as_str()))
+        .filter(|n| n.input.iter().any(|i| read_dequantized(g, &ix, i)))
+        .map(|n| n.op_type.as_str())
+        .collect();
+    if emulated.is_empty() {
+        return Vec::new();
+    }
+    let mut counts: Vec<(String, usize)> = Vec::new();
+    for op in emulated {
+        match counts.iter_mut().find(|(o, _)| o == op) {
+            Some((_, n)) => *n += 1,
+            None => counts.push((op.to_string(), 1)),
+        }
+    }
+    let listed: Vec<String> = counts.iter().map(|(op, n)| format!("{n} {op}")).collect();
+    vec![format!(
+        "its latency reflects float emulation: {} quantized in the QDQ format run as float \
+         arithmetic between DequantizeLinear and QuantizeLinear, which an integer runtime would \
+         run on integer kernels (the engine folds only QDQ Conv with an int32 bias)",
+        listed.join(", ")
+    )]
+}
+
+/// Whether a DequantizeLinear node makes `value`.
+fn read_dequantized(g: &pb::GraphProto, ix: &Index<'_>, value: &str) -> bool {
+    ix.producer
+        .get(value)
+        .is_some_and(|&p| g.node[p].op_type == "DequantizeLinear")
+}
