@@ -82,17 +82,37 @@ pub fn bundle_if_needed(model: &Path) -> Result<Option<Bundle>, String> {
     let stored = zip::write::SimpleFileOptions::default()
         .compression_method(zip::CompressionMethod::Stored)
         .large_file(true);
-    let model_name = model
-        .file_name()
-        .map(|n| n.to_string_lossy().into_owned())
-        .unwrap_or_else(|| "model.onnx".into());
+    // The service takes the one entry ending in .onnx as the model.
+    let model_name = format!(
+        "{}.onnx",
+        model
+            .file_stem()
+            .map_or_else(|| "model".into(), |n| n.to_string_lossy().into_owned())
+    );
+    if let Some(clash) = files
+        .iter()
+        .find(|f| f.to_string_lossy().to_ascii_lowercase().ends_with(".onnx"))
+    {
+        return Err(format!(
+            "{}: its external data file '{}' ends in .onnx, which a bundle keeps for the model \
+             itself; rename the data file",
+            model.display(),
+            clash.display()
+        ));
+    }
+    let root = std::fs::canonicalize(folder)
+        .map_err(|e| format!("cannot read {}: {e}", folder.display()))?;
     let mut add = |name: &str, from: &Path| -> Result<(), String> {
         let meta = std::fs::symlink_metadata(from)
             .map_err(|e| format!("cannot read {}: {e}", from.display()))?;
-        if !meta.is_file() {
+        // Neither the file nor a folder on its way may be a link that
+        // leads out of the model's folder.
+        let real = std::fs::canonicalize(from)
+            .map_err(|e| format!("cannot read {}: {e}", from.display()))?;
+        if !meta.is_file() || !real.starts_with(&root) {
             return Err(format!(
-                "{} is not a regular file (links are not followed); the model names it as \
-                 external data",
+                "{} is not a regular file inside the model's folder (links are not followed); \
+                 the model names it as external data",
                 from.display()
             ));
         }

@@ -42,7 +42,9 @@ pub fn run(
     let mut feed = Feed::open(set, &m.binding)?;
     let outputs: Mutex<Vec<Option<Vec<f64>>>> = Mutex::new(vec![None; batches]);
     let engine_time = Mutex::new(Duration::ZERO);
-    let failed: Mutex<Option<EngineError>> = Mutex::new(None);
+    // The failure of the earliest batch, so the message does not depend on
+    // which thread got there first.
+    let failed: Mutex<Option<(usize, EngineError)>> = Mutex::new(None);
     let gave_up = || lock(&failed).is_some();
     let (tx, rx) = std::sync::mpsc::sync_channel::<Batch>(READ_AHEAD * threads);
     // Taken by the engine threads in turn; dropped by the first that gives
@@ -55,10 +57,20 @@ pub fn run(
         }
         rx.as_ref().and_then(|r| r.recv().ok())
     };
-    let give_up = |e: EngineError| {
-        lock(&failed).get_or_insert(e);
-        *lock(&rx) = None;
+    let give_up = |ix: usize, e: EngineError| {
+        let mut failed = lock(&failed);
+        if failed.as_ref().is_none_or(|(first, _)| ix < *first) {
+            *failed = Some((ix, e));
+        }
     };
+    /// Drops the receiver when its engine thread ends, however it ends, so
+    /// that the reader never waits on a channel nobody reads.
+    struct EndsReader<'a, T>(&'a Mutex<Option<T>>);
+    impl<T> Drop for EndsReader<'_, T> {
+        fn drop(&mut self) {
+            *lock(self.0) = None;
+        }
+    }
     std::thread::scope(|scope| {
         scope.spawn(move || {
             for ix in 0..batches {
@@ -72,6 +84,7 @@ pub fn run(
         });
         for _ in 0..threads {
             scope.spawn(|| {
+                let _ends = EndsReader(&rx);
                 while let Some((ix, tensors)) = next() {
                     let rows = batch.min(n - ix * batch);
                     let scored = tensors.and_then(|tensors| {
@@ -88,13 +101,13 @@ pub fn run(
                             lock(&outputs)[ix] = Some(values);
                             tick(rows as u64);
                         }
-                        Err(e) => return give_up(e),
+                        Err(e) => return give_up(ix, e),
                     }
                 }
             });
         }
     });
-    if let Some(e) = failed.into_inner().unwrap_or_else(|p| p.into_inner()) {
+    if let Some((_, e)) = failed.into_inner().unwrap_or_else(|p| p.into_inner()) {
         return Err(e);
     }
     let outputs = outputs.into_inner().unwrap_or_else(|p| p.into_inner());

@@ -8,7 +8,7 @@
 
 use std::collections::HashMap;
 use std::io::Read;
-use std::path::{Component, Path, PathBuf};
+use std::path::{Path, PathBuf};
 
 use prost::Message;
 use tract_onnx::pb;
@@ -111,17 +111,30 @@ fn nodes_tensors(
 }
 
 /// A path inside the bundle, as its components; `None` when it is absolute
-/// or climbs out with `..`.
+/// or climbs out with `..`. Both `/` and `\\` separate components, whatever
+/// the host, so that a client and the service read a location alike.
 pub(crate) fn inside(path: &str) -> Option<PathBuf> {
+    if path.starts_with(['/', '\\']) || path.as_bytes().get(1) == Some(&b':') {
+        return None;
+    }
     let mut out = PathBuf::new();
-    for c in Path::new(path).components() {
-        match c {
-            Component::Normal(part) => out.push(part),
-            Component::CurDir => {}
-            Component::ParentDir | Component::RootDir | Component::Prefix(_) => return None,
+    for part in path.split(['/', '\\']) {
+        match part {
+            "" | "." => {}
+            ".." => return None,
+            part => out.push(part),
         }
     }
     (!out.as_os_str().is_empty()).then_some(out)
+}
+
+/// Entries that archivers add beside the files (macOS resource forks).
+fn archiver_litter(name: &str) -> bool {
+    name.starts_with("__MACOSX/")
+        || name
+            .rsplit(['/', '\\'])
+            .next()
+            .is_some_and(|base| base.starts_with("._"))
 }
 
 /// What a zip entry is, as far as the bundle's checks go.
@@ -151,6 +164,9 @@ fn contents(zip: &mut zip::ZipArchive<std::fs::File>) -> EngineResult<Contents> 
             .by_index_raw(index)
             .map_err(|e| invalid(format!("the zip bundle is damaged: {e}")))?;
         let name = entry.name().to_string();
+        if entry.is_dir() || archiver_litter(&name) {
+            continue;
+        }
         let path = inside(&name).ok_or_else(|| {
             invalid(format!(
                 "the zip bundle holds '{name}', a path outside the bundle; entries must be \
@@ -162,9 +178,6 @@ fn contents(zip: &mut zip::ZipArchive<std::fs::File>) -> EngineResult<Contents> 
                 "the zip bundle holds '{name}' as a symbolic link; put the file itself in the \
                  bundle"
             )));
-        }
-        if entry.is_dir() {
-            continue;
         }
         if name.to_ascii_lowercase().ends_with(".onnx") {
             models.push(path.clone());
@@ -193,8 +206,15 @@ fn read_entry(zip: &mut zip::ZipArchive<std::fs::File>, entry: &Entry) -> Engine
     let mut file = zip
         .by_index(entry.index)
         .map_err(|e| invalid(format!("the zip bundle is damaged: {e}")))?;
-    let mut bytes = Vec::with_capacity(entry.size.min(MAX_SELF_CONTAINED) as usize);
-    file.read_to_end(&mut bytes)
+    if entry.size > MAX_SELF_CONTAINED {
+        return Err(too_large());
+    }
+    // The header's size is a claim: read at most one byte past it, and let
+    // the buffer grow with what really arrives.
+    let mut bytes = Vec::new();
+    (&mut file)
+        .take(entry.size + 1)
+        .read_to_end(&mut bytes)
         .map_err(|e| invalid(format!("the zip bundle is damaged: {e}")))?;
     if bytes.len() as u64 != entry.size {
         return Err(invalid(format!(
@@ -273,6 +293,9 @@ pub fn inline(path: &Path) -> EngineResult<Inlined> {
     let base = model.parent().map(Path::to_path_buf).unwrap_or_default();
     let mut data: HashMap<PathBuf, Vec<u8>> = HashMap::new();
     let mut external_data = 0u64;
+    // Data files are read whole; their sizes together are bounded too, or
+    // many entries sharing one compressed stream could each claim 2 GiB.
+    let mut read_total = 0u64;
     for_each_tensor(&mut proto, &mut |t| {
         if !is_external(t) {
             return Ok(());
@@ -331,6 +354,10 @@ pub fn inline(path: &Path) -> EngineResult<Inlined> {
             return Err(too_large());
         }
         if !data.contains_key(&at) {
+            read_total += entry.size;
+            if read_total > MAX_SELF_CONTAINED {
+                return Err(too_large());
+            }
             let bytes = read_entry(&mut zip, entry)?;
             data.insert(at.clone(), bytes);
         }
@@ -371,6 +398,17 @@ mod tests {
         assert_eq!(inside("/etc/hostname"), None);
         assert_eq!(inside(""), None);
         assert_eq!(inside("."), None);
+        assert_eq!(inside("a\\w.bin"), Some(PathBuf::from("a/w.bin")));
+        assert_eq!(inside("a\\..\\w.bin"), None);
+        assert_eq!(inside("\\w.bin"), None);
+        assert_eq!(inside("C:w.bin"), None);
+    }
+
+    #[test]
+    fn resource_forks_are_not_files_of_the_bundle() {
+        assert!(archiver_litter("__MACOSX/._teacher.onnx"));
+        assert!(archiver_litter("export/._teacher.onnx"));
+        assert!(!archiver_litter("export/teacher.onnx"));
     }
 
     #[test]

@@ -55,7 +55,7 @@ impl TeacherCache {
         teacher_sha: &str,
         set_sha: &str,
         output: Option<&str>,
-        batch: usize,
+        pace: Pace,
     ) -> Option<Cached> {
         let stem = self.stem(teacher_sha, set_sha, output);
         let npy_path = stem.with_extension("npy");
@@ -76,7 +76,7 @@ impl TeacherCache {
         }
         Some(Cached {
             raw,
-            engine_time: times.get(&batch).map(|s| Duration::from_secs_f64(*s)),
+            engine_time: times.get(&pace.key()).map(|s| Duration::from_secs_f64(*s)),
         })
     }
 
@@ -85,7 +85,7 @@ impl TeacherCache {
         teacher_sha: &str,
         set_sha: &str,
         output: Option<&str>,
-        batch: usize,
+        pace: Pace,
         raw: &Scores,
         engine_time: Duration,
     ) -> EngineResult<()> {
@@ -94,7 +94,7 @@ impl TeacherCache {
         write_atomic(&stem.with_extension("npy"), &f64_matrix_bytes(raw))?;
         let json_path = stem.with_extension("json");
         let mut times = read_times(&json_path);
-        times.insert(batch, engine_time.as_secs_f64());
+        times.insert(pace.key(), engine_time.as_secs_f64());
         let text = serde_json::to_vec(&times).expect("a map of numbers serializes");
         write_atomic(&json_path, &text)
     }
@@ -128,7 +128,24 @@ pub fn evict(dir: &Path, max_bytes: u64) -> std::io::Result<u64> {
     Ok(freed)
 }
 
-fn read_times(path: &Path) -> BTreeMap<usize, f64> {
+/// How a bulk pass ran. Engine time depends on the batch size and on how
+/// many threads shared the pass (their call times are summed), so it is
+/// kept per both.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Pace {
+    pub batch: usize,
+    pub threads: usize,
+}
+
+impl Pace {
+    /// Keys of the batch alone, written before threads shared a model,
+    /// never match one of these.
+    fn key(self) -> String {
+        format!("{}x{}", self.batch, self.threads)
+    }
+}
+
+fn read_times(path: &Path) -> BTreeMap<String, f64> {
     fs::read(path)
         .ok()
         .and_then(|b| serde_json::from_slice(&b).ok())
@@ -174,19 +191,65 @@ mod tests {
         let cache = TeacherCache::new(dir.path());
         let raw = Scores::from_rows(3, vec![0.1, -2.5, 1e-300, 7.0, f64::MAX, -0.0]);
         cache
-            .put("aa", "bb", None, 32, &raw, Duration::from_millis(5))
+            .put(
+                "aa",
+                "bb",
+                None,
+                Pace {
+                    batch: 32,
+                    threads: 1,
+                },
+                &raw,
+                Duration::from_millis(5),
+            )
             .unwrap();
-        let hit = cache.get("aa", "bb", None, 32).unwrap();
+        let hit = cache
+            .get(
+                "aa",
+                "bb",
+                None,
+                Pace {
+                    batch: 32,
+                    threads: 1,
+                },
+            )
+            .unwrap();
         assert_eq!(hit.raw, raw);
         assert_eq!(hit.engine_time, Some(Duration::from_millis(5)));
+        // Engine time summed over two threads is another figure.
+        let two = Pace {
+            batch: 32,
+            threads: 2,
+        };
+        assert_eq!(cache.get("aa", "bb", None, two).unwrap().engine_time, None);
         assert!(
             cache
-                .get("aa", "bb", None, 16)
+                .get(
+                    "aa",
+                    "bb",
+                    None,
+                    Pace {
+                        batch: 16,
+                        threads: 1
+                    }
+                )
                 .unwrap()
                 .engine_time
                 .is_none()
         );
-        assert!(cache.get("aa", "bb", Some("probs"), 32).is_none());
+        assert!(
+            cache
+                .get(
+                    "aa",
+                    "bb",
+                    Some("probs"),
+                    Pace {
+                        batch: 32,
+                        threads: 1
+                    }
+                )
+                .is_none()
+        );
     }
 
     #[test]
@@ -198,12 +261,42 @@ mod tests {
         };
         let raw = Scores::from_rows(2, vec![1.0, 2.0]);
         older
-            .put("aa", "bb", None, 8, &raw, Duration::from_millis(1))
+            .put(
+                "aa",
+                "bb",
+                None,
+                Pace {
+                    batch: 8,
+                    threads: 1,
+                },
+                &raw,
+                Duration::from_millis(1),
+            )
             .unwrap();
-        assert!(older.get("aa", "bb", None, 8).is_some());
+        assert!(
+            older
+                .get(
+                    "aa",
+                    "bb",
+                    None,
+                    Pace {
+                        batch: 8,
+                        threads: 1
+                    }
+                )
+                .is_some()
+        );
         assert!(
             TeacherCache::new(dir.path())
-                .get("aa", "bb", None, 8)
+                .get(
+                    "aa",
+                    "bb",
+                    None,
+                    Pace {
+                        batch: 8,
+                        threads: 1
+                    }
+                )
                 .is_none()
         );
     }
@@ -214,7 +307,17 @@ mod tests {
         let cache = TeacherCache::new(dir.path());
         let raw = Scores::from_rows(2, vec![1.0, 2.0]);
         cache
-            .put("aa", "bb", None, 8, &raw, Duration::from_millis(1))
+            .put(
+                "aa",
+                "bb",
+                None,
+                Pace {
+                    batch: 8,
+                    threads: 1,
+                },
+                &raw,
+                Duration::from_millis(1),
+            )
             .unwrap();
         let npy = std::fs::read_dir(dir.path())
             .unwrap()
@@ -223,14 +326,48 @@ mod tests {
             .unwrap();
         std::fs::write(&npy, b"not an array").unwrap();
         assert!(
-            cache.get("aa", "bb", None, 8).is_none(),
+            cache
+                .get(
+                    "aa",
+                    "bb",
+                    None,
+                    Pace {
+                        batch: 8,
+                        threads: 1
+                    }
+                )
+                .is_none(),
             "a corrupt entry is no hit"
         );
         assert!(!npy.exists(), "and it is removed");
         let fresh = Scores::from_rows(2, vec![3.0, 4.0]);
         cache
-            .put("aa", "bb", None, 8, &fresh, Duration::from_millis(2))
+            .put(
+                "aa",
+                "bb",
+                None,
+                Pace {
+                    batch: 8,
+                    threads: 1,
+                },
+                &fresh,
+                Duration::from_millis(2),
+            )
             .unwrap();
-        assert_eq!(cache.get("aa", "bb", None, 8).unwrap().raw, fresh);
+        assert_eq!(
+            cache
+                .get(
+                    "aa",
+                    "bb",
+                    None,
+                    Pace {
+                        batch: 8,
+                        threads: 1
+                    }
+                )
+                .unwrap()
+                .raw,
+            fresh
+        );
     }
 }

@@ -10,7 +10,7 @@ use tract_onnx::prelude::*;
 
 use super::assemble::assemble;
 use super::bulk::{self, BulkScores};
-use super::cache::TeacherCache;
+use super::cache::{Pace, TeacherCache};
 use super::dataset::EvalSet;
 use super::error::{EngineError, EngineResult};
 use super::feed::Feed;
@@ -51,16 +51,13 @@ pub fn evaluate(job: &Job, options: &Options, hooks: &Hooks<'_>) -> EngineResult
     let cache = options.teacher_cache.as_ref().map(TeacherCache::new);
     let teacher_batch = teacher.bulk_batch(batch, n);
     let output = Some(teacher.output_name.as_str());
+    let pace = Pace {
+        batch: teacher_batch,
+        threads,
+    };
     let cached_teacher = cache
         .as_ref()
-        .and_then(|c| {
-            c.get(
-                &job.teacher.sha256,
-                &job.dataset.sha256,
-                output,
-                teacher_batch,
-            )
-        })
+        .and_then(|c| c.get(&job.teacher.sha256, &job.dataset.sha256, output, pace))
         .filter(|hit| hit.raw.n == n && hit.raw.c == teacher.classes)
         .and_then(|hit| {
             hit.engine_time.map(|engine_time| BulkScores {
@@ -79,7 +76,7 @@ pub fn evaluate(job: &Job, options: &Options, hooks: &Hooks<'_>) -> EngineResult
             &job.teacher.sha256,
             &job.dataset.sha256,
             output,
-            teacher_batch,
+            pace,
             &r.raw,
             r.engine_time,
         )?;

@@ -62,6 +62,28 @@ fn attr_int(node: &pb::NodeProto, name: &str) -> Option<i64> {
     node.attribute.iter().find(|a| a.name == name).map(|a| a.i)
 }
 
+/// Every value a subgraph reads (its nodes' inputs and its outputs), at
+/// any depth, named as the outer graph may name them.
+fn subgraph_reads(g: &pb::GraphProto) -> Vec<&str> {
+    let mut out: Vec<&str> = g.output.iter().map(|o| o.name.as_str()).collect();
+    for n in &g.node {
+        out.extend(n.input.iter().map(String::as_str));
+        for a in &n.attribute {
+            for sub in a.g.iter().chain(&a.graphs) {
+                out.extend(subgraph_reads(sub));
+            }
+        }
+    }
+    out
+}
+
+/// Whether an initializer holds 8-bit integers, the only zero points
+/// QLinearConv takes.
+fn eight_bit(t: &pb::TensorProto) -> bool {
+    use pb::tensor_proto::DataType as D;
+    t.data_type == D::Int8 as i32 || t.data_type == D::Uint8 as i32
+}
+
 /// The graph's names: who makes each value, who reads it.
 struct Index<'g> {
     producer: HashMap<&'g str, usize>,
@@ -81,13 +103,11 @@ impl<'g> Index<'g> {
             for input in &n.input {
                 *readers.entry(input.as_str()).or_default() += 1;
             }
-            // A subgraph may read any outer value: count those reads too.
+            // A subgraph may read any outer value, at any depth.
             for a in &n.attribute {
                 for sub in a.g.iter().chain(&a.graphs) {
-                    for sn in &sub.node {
-                        for input in &sn.input {
-                            *readers.entry(input.as_str()).or_default() += 1;
-                        }
+                    for name in subgraph_reads(sub) {
+                        *readers.entry(name).or_default() += 1;
                     }
                 }
             }
@@ -145,7 +165,22 @@ fn fold_one(
     if ix.floats(&dx.input[1])?.len() != 1 || ix.floats(&q.input[1])?.len() != 1 {
         return None;
     }
-    if ix.floats(&dw.input[1])?.len() != 1 && attr_int(dw, "axis") != Some(0) {
+    let channels = *ix.initializers.get(dw.input[0].as_str())?.dims.first()?;
+    let per_channel = ix.floats(&dw.input[1])?.len();
+    if per_channel != 1 && (attr_int(dw, "axis") != Some(0) || per_channel as i64 != channels) {
+        return None;
+    }
+    // 8-bit zero points only (opset 21 also allows 16-bit and 4-bit types,
+    // and blocked scales, which QLinearConv does not take).
+    for zp in [&dx.input[2], &dw.input[2], &q.input[2]] {
+        if !eight_bit(ix.initializers.get(zp.as_str())?) {
+            return None;
+        }
+    }
+    if [dx, dw, q]
+        .iter()
+        .any(|n| attr_int(n, "block_size").is_some_and(|b| b != 0))
+    {
         return None;
     }
     ix.initializers.get(dw.input[0].as_str())?;
@@ -177,12 +212,17 @@ fn fold_one(
         let xs = ix.floats(&dx.input[1])?[0];
         let ws = ix.floats(&dw.input[1])?;
         let bs = ix.floats(&db.input[1])?;
+        if bs.len() != 1 && bs.len() != ws.len().max(1) && bs.len() as i64 != channels {
+            return None;
+        }
+        let at = |v: &[f32], i: usize| if v.len() == 1 { v[0] } else { v[i] };
         let matches = |i: usize| {
-            let w = if ws.len() == 1 { ws[0] } else { ws[i] };
-            let b = if bs.len() == 1 { bs[0] } else { bs[i] };
+            let (w, b) = (at(&ws, i), at(&bs, i));
             ((xs * w) - b).abs() <= 1e-6 * b.abs().max(f32::MIN_POSITIVE)
         };
-        if !(0..ws.len().max(bs.len())).all(matches) {
+        if (ws.len() != 1 && bs.len() != 1 && ws.len() != bs.len())
+            || !(0..ws.len().max(bs.len())).all(matches)
+        {
             return None;
         }
         inputs.push(db.input[0].clone());
@@ -235,12 +275,7 @@ pub fn fold(model: &mut pb::ModelProto) -> Folded {
     });
     // Dequantized weights and biases the convolutions read are now unread.
     loop {
-        let read: HashSet<String> = g
-            .node
-            .iter()
-            .flat_map(|n| n.input.iter().cloned())
-            .chain(g.output.iter().map(|o| o.name.clone()))
-            .collect();
+        let read: HashSet<String> = subgraph_reads(g).into_iter().map(str::to_string).collect();
         let before = g.node.len();
         g.node.retain(|n| {
             n.op_type != "DequantizeLinear" || n.output.iter().any(|o| read.contains(o))

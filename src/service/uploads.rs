@@ -195,6 +195,17 @@ impl App {
             .await?;
         drop(bundle);
         let model = self.store.blobs.seal(scratch).await?;
+        // A small deflated bundle can inline to far more than it was sent
+        // as: the upload and storage limits hold for what is kept.
+        let limit = self.config.max_upload_bytes;
+        if model.bytes > limit {
+            return Err(AppError::TooLarge(format!(
+                "the model holds {} bytes once its data is inlined; uploads are limited to \
+                 {limit} bytes",
+                model.bytes
+            )));
+        }
+        self.room_for(model.bytes).await?;
         self.keep(name, model, Some(info)).await
     }
 

@@ -363,6 +363,7 @@ async fn a_torch_export_with_external_data_is_sent_as_a_bundle_of_the_files_it_n
     assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
     let models = s.get("/v1/models").await.body;
     let want = &support::expected("torch_external")["models"];
+    assert_eq!(models["items"].as_array().unwrap().len(), 2, "{models}");
     for m in models["items"].as_array().unwrap() {
         let stem = m["name"].as_str().unwrap().trim_end_matches(".onnx");
         assert_eq!(m["external_data"], want[stem]["external_data"], "{m}");

@@ -123,3 +123,41 @@ fn an_unknown_operator_is_named() {
         "{msg}"
     );
 }
+
+#[test]
+fn a_bias_at_another_scale_than_x_scale_times_w_scale_is_not_folded() {
+    // QLinearConv's bias is int32 at x_scale * w_scale (ONNX operator
+    // specification); a model whose bias scale differs keeps its float
+    // convolution, and the note says so.
+    let bytes = std::fs::read(case_dir("int8").join("student_qdq.onnx")).unwrap();
+    let mut model = pb::ModelProto::decode(bytes.as_slice()).unwrap();
+    let g = model.graph.as_mut().unwrap();
+    let int32 = pb::tensor_proto::DataType::Int32 as i32;
+    let biases: Vec<String> = g
+        .initializer
+        .iter()
+        .filter(|t| t.data_type == int32)
+        .map(|t| t.name.clone())
+        .collect();
+    let scales: Vec<String> = g
+        .node
+        .iter()
+        .filter(|n| n.op_type == "DequantizeLinear" && biases.contains(&n.input[0]))
+        .map(|n| n.input[1].clone())
+        .collect();
+    assert!(!scales.is_empty(), "the fixture quantizes its biases");
+    for t in g
+        .initializer
+        .iter_mut()
+        .filter(|t| scales.contains(&t.name))
+    {
+        let doubled: Vec<u8> = t
+            .raw_data
+            .chunks_exact(4)
+            .flat_map(|b| (2.0 * f32::from_le_bytes([b[0], b[1], b[2], b[3]])).to_le_bytes())
+            .collect();
+        t.raw_data = doubled;
+    }
+    let m = Model::from_bytes(&model.encode_to_vec()).unwrap();
+    assert!(m.info.notes[0].contains("Conv"), "{:?}", m.info.notes);
+}
