@@ -14,6 +14,19 @@ use super::error::{EngineError, EngineResult};
 /// name, or fail deep inside the engine.
 const DOMAINS: [&str; 3] = ["", "ai.onnx", "ai.onnx.ml"];
 
+/// The traditional-ML operators tract implements (ONNX-ML operator set);
+/// only these may come from `ai.onnx.ml`, and none of them from the
+/// standard set. ArrayFeatureExtractor is registered among tract's array
+/// operators.
+const ML_OPERATORS: [&str; 6] = [
+    "ArrayFeatureExtractor",
+    "CategoryMapper",
+    "LinearClassifier",
+    "LinearRegressor",
+    "Normalizer",
+    "TreeEnsembleClassifier",
+];
+
 /// The domain of onnxruntime's contrib operators (QLinearAdd and the like),
 /// written by its quantizer in the operator-oriented format.
 const CONTRIB: &str = "com.microsoft";
@@ -62,6 +75,19 @@ pub(crate) fn check(graph: &pb::GraphProto) -> EngineResult<()> {
             "the model uses operators of the domain '{domain}' ({}), which the engine does not \
              run: it runs the standard ONNX operators and those of 'ai.onnx.ml'{hint}",
             ops.join(", ")
+        )));
+    }
+    let misplaced: BTreeSet<(&str, &str)> = all
+        .iter()
+        .filter(|n| (n.domain == "ai.onnx.ml") != ML_OPERATORS.contains(&n.op_type.as_str()))
+        .filter(|n| n.op_type != "ZipMap")
+        .map(|n| (n.domain.as_str(), n.op_type.as_str()))
+        .collect();
+    if let Some((domain, op)) = misplaced.into_iter().next() {
+        let domain = if domain.is_empty() { "ai.onnx" } else { domain };
+        return Err(invalid(format!(
+            "the model uses '{op}' of the domain '{domain}', which the engine does not implement \
+             in that domain"
         )));
     }
     if all.iter().any(|n| n.op_type == "ZipMap") {

@@ -116,6 +116,16 @@ fn a_standard_name_in_another_domain_is_not_run_as_the_standard_operator() {
 }
 
 #[test]
+fn a_standard_operator_is_not_taken_from_the_ml_domain() {
+    // Relu is no operator of the ONNX-ML set (onnx/docs/Operators-ml.md).
+    let msg = refusal(&with_first_node("ai.onnx.ml", "Relu"));
+    assert!(
+        msg.contains("'Relu'") && msg.contains("'ai.onnx.ml'"),
+        "{msg}"
+    );
+}
+
+#[test]
 fn an_unknown_operator_is_named() {
     let msg = refusal(&with_first_node("", "NoSuchOperator"));
     assert!(
