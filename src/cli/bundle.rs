@@ -12,7 +12,8 @@ use prost::Message;
 use sha2::{Digest, Sha256};
 use tract_onnx::pb;
 
-use crate::engine::bundle::{for_each_tensor, inline, inside, is_external};
+use crate::engine::EngineError;
+use crate::engine::bundle::{for_each_tensor, inline, inside, is_external, reference};
 
 /// A bundle built from a model's folder.
 pub struct Bundle {
@@ -31,38 +32,23 @@ fn named_files(model: &Path) -> Result<BTreeSet<PathBuf>, String> {
         return Ok(BTreeSet::new());
     };
     let mut files = BTreeSet::new();
-    let mut bad = None;
-    let _ = for_each_tensor(&mut proto, &mut |t| {
+    for_each_tensor(&mut proto, &mut |t| {
         if !is_external(t) {
             return Ok(());
         }
-        let location = t
-            .external_data
-            .iter()
-            .find(|kv| kv.key == "location")
-            .map(|kv| kv.value.as_str())
-            .unwrap_or_default();
-        match inside(location) {
-            Some(rel) => {
-                files.insert(rel);
-            }
-            None => {
-                bad.get_or_insert_with(|| {
-                    format!(
-                        "{}: tensor '{}' names external data at '{location}', which is not a \
-                         relative path inside the model's folder",
-                        model.display(),
-                        t.name
-                    )
-                });
-            }
-        }
+        let location = reference(t)?.location;
+        let rel = inside(&location).ok_or_else(|| {
+            EngineError::InvalidModel(format!(
+                "tensor '{}' names external data at '{location}', which is not a relative path \
+                 inside the model's folder",
+                t.name
+            ))
+        })?;
+        files.insert(rel);
         Ok(())
-    });
-    match bad {
-        Some(why) => Err(why),
-        None => Ok(files),
-    }
+    })
+    .map_err(|e| format!("{}: {e}", model.display()))?;
+    Ok(files)
 }
 
 /// The bundle for `model` when its tensors name external data, else `None`.
@@ -135,7 +121,7 @@ pub fn bundle_if_needed(model: &Path) -> Result<Option<Bundle>, String> {
         .map_err(|e| format!("cannot write the bundle: {e}"))?;
     drop(out);
     let inlined = inline(&zip_path).map_err(|e| format!("{}: {e}", model.display()))?;
-    let sha256 = hex::encode(Sha256::digest(&inlined.bytes));
+    let sha256 = hex::encode(Sha256::digest(inlined.model.encode_to_vec()));
     Ok(Some(Bundle {
         zip: zip_path,
         sha256,

@@ -45,26 +45,21 @@ pub fn run(
     // The failure of the earliest batch, so the message does not depend on
     // which thread got there first.
     let failed: Mutex<Option<(usize, EngineError)>> = Mutex::new(None);
-    let gave_up = || lock(&failed).is_some();
     let (tx, rx) = std::sync::mpsc::sync_channel::<Batch>(READ_AHEAD * threads);
-    // Taken by the engine threads in turn; dropped by the first that gives
-    // up, which ends the reader (its send fails) and the other threads.
+    // Taken by the engine threads in turn; dropped by the first that ends
+    // (see `EndsReader`), which ends the reader (its send fails) and the
+    // other threads.
     let rx = Mutex::new(Some(rx));
-    let next = || {
-        let mut rx = lock(&rx);
-        if gave_up() {
-            *rx = None;
-        }
-        rx.as_ref().and_then(|r| r.recv().ok())
-    };
+    let next = || lock(&rx).as_ref().and_then(|r| r.recv().ok());
     let give_up = |ix: usize, e: EngineError| {
         let mut failed = lock(&failed);
         if failed.as_ref().is_none_or(|(first, _)| ix < *first) {
             *failed = Some((ix, e));
         }
     };
-    /// Drops the receiver when its engine thread ends, however it ends, so
-    /// that the reader never waits on a channel nobody reads.
+    /// Drops the receiver when its engine thread ends, however it ends (the
+    /// set read through, a failure, a panic), so that the reader never
+    /// waits on a channel nobody reads.
     struct EndsReader<'a, T>(&'a Mutex<Option<T>>);
     impl<T> Drop for EndsReader<'_, T> {
         fn drop(&mut self) {

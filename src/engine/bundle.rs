@@ -22,8 +22,9 @@ pub const MAX_SELF_CONTAINED: u64 = (1 << 31) - 1;
 /// A bundle's model with its data inlined.
 #[derive(Debug)]
 pub struct Inlined {
-    /// The self-contained serialization.
-    pub bytes: Vec<u8>,
+    /// The self-contained model; its serialization is under
+    /// `MAX_SELF_CONTAINED`.
+    pub model: pb::ModelProto,
     /// Bytes that the bundle held outside the graph.
     pub external_data: u64,
 }
@@ -228,13 +229,14 @@ fn read_entry(zip: &mut zip::ZipArchive<std::fs::File>, entry: &Entry) -> Engine
 }
 
 /// Where one tensor's bytes are.
-struct Reference {
-    location: String,
+pub(crate) struct Reference {
+    pub(crate) location: String,
     offset: u64,
     length: Option<u64>,
 }
 
-fn reference(t: &pb::TensorProto) -> EngineResult<Reference> {
+/// The external-data entries of a tensor, read.
+pub(crate) fn reference(t: &pb::TensorProto) -> EngineResult<Reference> {
     let tensor = &t.name;
     let number = |key: &str, value: &str| {
         value.parse::<u64>().map_err(|_| {
@@ -372,7 +374,7 @@ pub fn inline(path: &Path) -> EngineResult<Inlined> {
         return Err(too_large());
     }
     Ok(Inlined {
-        bytes: proto.encode_to_vec(),
+        model: proto,
         external_data,
     })
 }
@@ -402,6 +404,58 @@ mod tests {
         assert_eq!(inside("a\\..\\w.bin"), None);
         assert_eq!(inside("\\w.bin"), None);
         assert_eq!(inside("C:w.bin"), None);
+    }
+
+    /// A bundle of `files` (name, bytes) and `links` (name, target).
+    fn bundle_of(files: &[(&str, &[u8])], links: &[(&str, &str)]) -> tempfile::NamedTempFile {
+        use std::io::Write;
+        let out = tempfile::NamedTempFile::new().unwrap();
+        let mut zip = zip::ZipWriter::new(out.reopen().unwrap());
+        let options = zip::write::SimpleFileOptions::default();
+        for (name, bytes) in files {
+            zip.start_file(*name, options).unwrap();
+            zip.write_all(bytes).unwrap();
+        }
+        for (name, target) in links {
+            zip.add_symlink(*name, *target, options).unwrap();
+        }
+        zip.finish().unwrap();
+        out
+    }
+
+    fn refusal(bundle: &tempfile::NamedTempFile) -> String {
+        match inline(bundle.path()) {
+            Err(EngineError::InvalidModel(m)) => m,
+            other => panic!("expected a refusal, got {other:?}"),
+        }
+    }
+
+    #[test]
+    fn a_link_in_the_bundle_is_refused_whatever_it_points_at() {
+        let b = bundle_of(&[("m.onnx", b"")], &[("w.bin", "/etc/hostname")]);
+        assert!(refusal(&b).contains("symbolic link"), "{}", refusal(&b));
+    }
+
+    #[test]
+    fn an_entry_named_outside_the_bundle_is_refused() {
+        let b = bundle_of(&[("m.onnx", b""), ("../w.bin", b"x")], &[]);
+        assert!(
+            refusal(&b).contains("outside the bundle"),
+            "{}",
+            refusal(&b)
+        );
+    }
+
+    #[test]
+    fn a_bundle_holds_exactly_one_model() {
+        let none = bundle_of(&[("w.bin", b"x")], &[]);
+        assert!(refusal(&none).contains("no .onnx"), "{}", refusal(&none));
+        let two = bundle_of(&[("a.onnx", b""), ("b/a.onnx", b"")], &[]);
+        assert!(refusal(&two).contains("2 .onnx"), "{}", refusal(&two));
+        // A resource fork beside the model is not a second model (an empty
+        // file decodes as an empty model; the engine refuses it later).
+        let fork = bundle_of(&[("a.onnx", b""), ("__MACOSX/._a.onnx", b"x")], &[]);
+        assert!(inline(fork.path()).is_ok());
     }
 
     #[test]

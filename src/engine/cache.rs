@@ -185,6 +185,10 @@ fn read_f64_matrix(path: &Path) -> EngineResult<Scores> {
 mod tests {
     use super::*;
 
+    fn one_thread(batch: usize) -> Pace {
+        Pace { batch, threads: 1 }
+    }
+
     #[test]
     fn scores_survive_a_round_trip_bit_for_bit() {
         let dir = tempfile::tempdir().unwrap();
@@ -195,25 +199,12 @@ mod tests {
                 "aa",
                 "bb",
                 None,
-                Pace {
-                    batch: 32,
-                    threads: 1,
-                },
+                one_thread(32),
                 &raw,
                 Duration::from_millis(5),
             )
             .unwrap();
-        let hit = cache
-            .get(
-                "aa",
-                "bb",
-                None,
-                Pace {
-                    batch: 32,
-                    threads: 1,
-                },
-            )
-            .unwrap();
+        let hit = cache.get("aa", "bb", None, one_thread(32)).unwrap();
         assert_eq!(hit.raw, raw);
         assert_eq!(hit.engine_time, Some(Duration::from_millis(5)));
         // Engine time summed over two threads is another figure.
@@ -224,30 +215,14 @@ mod tests {
         assert_eq!(cache.get("aa", "bb", None, two).unwrap().engine_time, None);
         assert!(
             cache
-                .get(
-                    "aa",
-                    "bb",
-                    None,
-                    Pace {
-                        batch: 16,
-                        threads: 1
-                    }
-                )
+                .get("aa", "bb", None, one_thread(16))
                 .unwrap()
                 .engine_time
                 .is_none()
         );
         assert!(
             cache
-                .get(
-                    "aa",
-                    "bb",
-                    Some("probs"),
-                    Pace {
-                        batch: 32,
-                        threads: 1
-                    }
-                )
+                .get("aa", "bb", Some("probs"), one_thread(32))
                 .is_none()
         );
     }
@@ -265,38 +240,15 @@ mod tests {
                 "aa",
                 "bb",
                 None,
-                Pace {
-                    batch: 8,
-                    threads: 1,
-                },
+                one_thread(8),
                 &raw,
                 Duration::from_millis(1),
             )
             .unwrap();
-        assert!(
-            older
-                .get(
-                    "aa",
-                    "bb",
-                    None,
-                    Pace {
-                        batch: 8,
-                        threads: 1
-                    }
-                )
-                .is_some()
-        );
+        assert!(older.get("aa", "bb", None, one_thread(8)).is_some());
         assert!(
             TeacherCache::new(dir.path())
-                .get(
-                    "aa",
-                    "bb",
-                    None,
-                    Pace {
-                        batch: 8,
-                        threads: 1
-                    }
-                )
+                .get("aa", "bb", None, one_thread(8))
                 .is_none()
         );
     }
@@ -311,10 +263,7 @@ mod tests {
                 "aa",
                 "bb",
                 None,
-                Pace {
-                    batch: 8,
-                    threads: 1,
-                },
+                one_thread(8),
                 &raw,
                 Duration::from_millis(1),
             )
@@ -326,17 +275,7 @@ mod tests {
             .unwrap();
         std::fs::write(&npy, b"not an array").unwrap();
         assert!(
-            cache
-                .get(
-                    "aa",
-                    "bb",
-                    None,
-                    Pace {
-                        batch: 8,
-                        threads: 1
-                    }
-                )
-                .is_none(),
+            cache.get("aa", "bb", None, one_thread(8)).is_none(),
             "a corrupt entry is no hit"
         );
         assert!(!npy.exists(), "and it is removed");
@@ -346,27 +285,13 @@ mod tests {
                 "aa",
                 "bb",
                 None,
-                Pace {
-                    batch: 8,
-                    threads: 1,
-                },
+                one_thread(8),
                 &fresh,
                 Duration::from_millis(2),
             )
             .unwrap();
         assert_eq!(
-            cache
-                .get(
-                    "aa",
-                    "bb",
-                    None,
-                    Pace {
-                        batch: 8,
-                        threads: 1
-                    }
-                )
-                .unwrap()
-                .raw,
+            cache.get("aa", "bb", None, one_thread(8)).unwrap().raw,
             fresh
         );
     }

@@ -56,10 +56,10 @@ pub fn inspect_model(path: &Path) -> EngineResult<model::ModelInfo> {
 /// service to store.
 pub fn inspect_bundle(bundle: &Path, out: &Path) -> EngineResult<model::ModelInfo> {
     let inlined = bundle::inline(bundle)?;
-    let m = model::Model::from_bytes(&inlined.bytes)?;
-    m.plan(1, &Default::default(), 0)?;
-    std::fs::write(out, &inlined.bytes)
+    std::fs::write(out, prost::Message::encode_to_vec(&inlined.model))
         .map_err(EngineError::io("writing the self-contained model"))?;
+    let m = model::Model::from_proto(inlined.model)?;
+    m.plan(1, &Default::default(), 0)?;
     let mut info = m.info;
     info.external_data = inlined.external_data;
     Ok(info)

@@ -117,21 +117,25 @@ impl Model {
     }
 
     pub fn from_bytes(bytes: &[u8]) -> EngineResult<Model> {
-        let mut proto = guarded("not an ONNX model", || {
-            tract_onnx::onnx().proto_model_for_read(&mut &*bytes)
-        })?;
+        let proto = <pb::ModelProto as prost::Message>::decode(bytes)
+            .map_err(|e| invalid(format!("not an ONNX model: {e}")))?;
+        Self::from_proto(proto)
+    }
+
+    /// Loads a decoded model (a bundle's, once its data is inlined).
+    pub fn from_proto(mut proto: pb::ModelProto) -> EngineResult<Model> {
+        let onnx = tract_onnx::onnx();
         refuse_external_data(&mut proto)?;
-        operators::check(
-            proto
-                .graph
-                .as_ref()
-                .ok_or_else(|| invalid("the ONNX model has no graph"))?,
-        )?;
+        let graph = proto
+            .graph
+            .as_ref()
+            .ok_or_else(|| invalid("the ONNX model has no graph"))?;
+        operators::check(graph, &onnx.op_register)?;
         // Counted on the model as uploaded, before any rewrite.
-        let parameters = count_parameters(proto.graph.as_ref().expect("checked above"));
+        let parameters = count_parameters(graph);
         quantized::fold(&mut proto);
         let notes = quantized::notes(&proto);
-        let graph = proto.graph.as_ref().expect("checked above");
+        let graph = proto.graph.as_ref().expect("folding keeps the graph");
         let initializers: std::collections::HashSet<&str> =
             graph.initializer.iter().map(|t| t.name.as_str()).collect();
         let declared: Vec<&pb::ValueInfoProto> = graph
@@ -141,7 +145,7 @@ impl Model {
             .collect();
 
         let mut model = guarded("the engine cannot load this ONNX graph", || {
-            tract_onnx::onnx().model_for_proto_model(&proto)
+            onnx.model_for_proto_model(&proto)
         })?;
         let shapes = name_input_axes(&declared)?;
         let mut inputs = Vec::with_capacity(declared.len());

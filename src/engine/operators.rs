@@ -4,6 +4,7 @@
 
 use std::collections::BTreeSet;
 
+use tract_onnx::model::OnnxOpRegister;
 use tract_onnx::pb;
 
 use super::error::{EngineError, EngineResult};
@@ -52,7 +53,7 @@ fn nodes(graph: &pb::GraphProto) -> Vec<&pb::NodeProto> {
 
 /// Refuses operators of a domain the engine does not implement, operators
 /// it does not know by name, and ZipMap.
-pub(crate) fn check(graph: &pb::GraphProto) -> EngineResult<()> {
+pub(crate) fn check(graph: &pb::GraphProto, known: &OnnxOpRegister) -> EngineResult<()> {
     let all = nodes(graph);
     let foreign: BTreeSet<(&str, &str)> = all
         .iter()
@@ -96,7 +97,6 @@ pub(crate) fn check(graph: &pb::GraphProto) -> EngineResult<()> {
              (e.g. skl2onnx options {'zipmap': False}) or name a tensor output",
         ));
     }
-    let known = tract_onnx::onnx().op_register;
     let unknown: BTreeSet<&str> = all
         .iter()
         .map(|n| n.op_type.as_str())

@@ -9,19 +9,12 @@
 //! be folded is named in the model's notes, since its latency then reflects
 //! float emulation.
 
-use std::collections::{HashMap, HashSet};
+use std::collections::{BTreeMap, HashMap, HashSet};
 
 use tract_onnx::pb;
 
 /// Operators whose quantized form is the QDQ pattern around them.
 const COMPUTE: [&str; 4] = ["Conv", "ConvTranspose", "MatMul", "Gemm"];
-
-/// What `fold` did.
-#[derive(Debug, Default, Clone, PartialEq, Eq)]
-pub struct Folded {
-    /// Convolutions now run as QLinearConv.
-    pub convolutions: usize,
-}
 
 fn float_data(t: &pb::TensorProto) -> Option<Vec<f32>> {
     if t.data_type != pb::tensor_proto::DataType::Float as i32 {
@@ -41,21 +34,18 @@ fn float_data(t: &pb::TensorProto) -> Option<Vec<f32>> {
 fn int_data(t: &pb::TensorProto) -> Option<Vec<i64>> {
     use pb::tensor_proto::DataType as D;
     let raw = &t.raw_data;
-    let from_raw: Option<Vec<i64>> = match D::try_from(t.data_type).ok()? {
-        D::Int8 => Some(raw.iter().map(|&b| b as i8 as i64).collect()),
-        D::Uint8 => Some(raw.iter().map(|&b| b as i64).collect()),
-        D::Int32 => Some(
-            raw.chunks_exact(4)
-                .map(|b| i32::from_le_bytes([b[0], b[1], b[2], b[3]]) as i64)
-                .collect(),
-        ),
-        _ => return None,
-    };
     if raw.is_empty() {
-        Some(t.int32_data.iter().map(|&v| v as i64).collect())
-    } else {
-        from_raw
+        return Some(t.int32_data.iter().map(|&v| v as i64).collect());
     }
+    Some(match D::try_from(t.data_type).ok()? {
+        D::Int8 => raw.iter().map(|&b| b as i8 as i64).collect(),
+        D::Uint8 => raw.iter().map(|&b| b as i64).collect(),
+        D::Int32 => raw
+            .chunks_exact(4)
+            .map(|b| i32::from_le_bytes([b[0], b[1], b[2], b[3]]) as i64)
+            .collect(),
+        _ => return None,
+    })
 }
 
 fn attr_int(node: &pb::NodeProto, name: &str) -> Option<i64> {
@@ -84,10 +74,12 @@ fn eight_bit(t: &pb::TensorProto) -> bool {
     t.data_type == D::Int8 as i32 || t.data_type == D::Uint8 as i32
 }
 
-/// The graph's names: who makes each value, who reads it.
+/// The graph's names: who makes each value, how often it is read and by
+/// which node of the graph (the last one, when there are several).
 struct Index<'g> {
     producer: HashMap<&'g str, usize>,
     readers: HashMap<&'g str, usize>,
+    reader: HashMap<&'g str, usize>,
     initializers: HashMap<&'g str, &'g pb::TensorProto>,
     outputs: HashSet<&'g str>,
 }
@@ -96,12 +88,14 @@ impl<'g> Index<'g> {
     fn of(g: &'g pb::GraphProto) -> Index<'g> {
         let mut producer = HashMap::new();
         let mut readers: HashMap<&str, usize> = HashMap::new();
+        let mut reader = HashMap::new();
         for (i, n) in g.node.iter().enumerate() {
             for o in &n.output {
                 producer.insert(o.as_str(), i);
             }
             for input in &n.input {
                 *readers.entry(input.as_str()).or_default() += 1;
+                reader.insert(input.as_str(), i);
             }
             // A subgraph may read any outer value, at any depth.
             for a in &n.attribute {
@@ -115,6 +109,7 @@ impl<'g> Index<'g> {
         Index {
             producer,
             readers,
+            reader,
             initializers: g.initializer.iter().map(|t| (t.name.as_str(), t)).collect(),
             outputs: g.output.iter().map(|o| o.name.as_str()).collect(),
         }
@@ -125,6 +120,13 @@ impl<'g> Index<'g> {
     fn dequantized(&self, g: &'g pb::GraphProto, value: &str) -> Option<&'g pb::NodeProto> {
         let n = &g.node[*self.producer.get(value)?];
         (n.op_type == "DequantizeLinear" && n.input.len() == 3 && n.domain.is_empty()).then_some(n)
+    }
+
+    /// Whether a DequantizeLinear node, of any form, makes `value`.
+    fn made_by_dequantize(&self, g: &pb::GraphProto, value: &str) -> bool {
+        self.producer
+            .get(value)
+            .is_some_and(|&p| g.node[p].op_type == "DequantizeLinear")
     }
 
     fn floats(&self, name: &str) -> Option<Vec<f32>> {
@@ -150,12 +152,13 @@ fn fold_one(
     if ix.outputs.contains(y) || ix.readers.get(y) != Some(&1) {
         return None;
     }
-    let q_ix = g
-        .node
-        .iter()
-        .position(|n| n.input.first().map(String::as_str) == Some(y))?;
+    let q_ix = *ix.reader.get(y)?;
     let q = &g.node[q_ix];
-    if q.op_type != "QuantizeLinear" || q.input.len() != 3 || !q.domain.is_empty() {
+    if q.input.first().map(String::as_str) != Some(y)
+        || q.op_type != "QuantizeLinear"
+        || q.input.len() != 3
+        || !q.domain.is_empty()
+    {
         return None;
     }
     let dx = ix.dequantized(g, &conv.input[0])?;
@@ -241,9 +244,9 @@ fn fold_one(
 
 /// Rewrites QDQ convolutions of the main graph into QLinearConv, then drops
 /// DequantizeLinear nodes that nothing reads any more.
-pub fn fold(model: &mut pb::ModelProto) -> Folded {
+pub fn fold(model: &mut pb::ModelProto) {
     let Some(g) = model.graph.as_mut() else {
-        return Folded::default();
+        return;
     };
     let mut replaced: Vec<(usize, pb::NodeProto, usize)> = Vec::new();
     {
@@ -257,11 +260,8 @@ pub fn fold(model: &mut pb::ModelProto) -> Folded {
             }
         }
     }
-    let folded = Folded {
-        convolutions: replaced.len(),
-    };
     if replaced.is_empty() {
-        return folded;
+        return;
     }
     let mut drop: HashSet<usize> = HashSet::new();
     for (i, node, q) in replaced {
@@ -284,7 +284,6 @@ pub fn fold(model: &mut pb::ModelProto) -> Folded {
             break;
         }
     }
-    folded
 }
 
 /// What the model's readers should know about its quantized operators:
@@ -298,18 +297,15 @@ pub fn notes(model: &pb::ModelProto) -> Vec<String> {
         .node
         .iter()
         .filter(|n| COMPUTE.contains(&n.op_type.as_str()))
-        .filter(|n| n.input.iter().any(|i| read_dequantized(g, &ix, i)))
+        .filter(|n| n.input.iter().any(|i| ix.made_by_dequantize(g, i)))
         .map(|n| n.op_type.as_str())
         .collect();
     if emulated.is_empty() {
         return Vec::new();
     }
-    let mut counts: Vec<(String, usize)> = Vec::new();
+    let mut counts: BTreeMap<&str, usize> = BTreeMap::new();
     for op in emulated {
-        match counts.iter_mut().find(|(o, _)| o == op) {
-            Some((_, n)) => *n += 1,
-            None => counts.push((op.to_string(), 1)),
-        }
+        *counts.entry(op).or_default() += 1;
     }
     let listed: Vec<String> = counts.iter().map(|(op, n)| format!("{n} {op}")).collect();
     vec![format!(
@@ -318,11 +314,4 @@ pub fn notes(model: &pb::ModelProto) -> Vec<String> {
          run on integer kernels (the engine folds only QDQ Conv with an int32 bias)",
         listed.join(", ")
     )]
-}
-
-/// Whether a DequantizeLinear node makes `value`.
-fn read_dequantized(g: &pb::GraphProto, ix: &Index<'_>, value: &str) -> bool {
-    ix.producer
-        .get(value)
-        .is_some_and(|&p| g.node[p].op_type == "DequantizeLinear")
 }
