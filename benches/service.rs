@@ -90,7 +90,8 @@ async fn main() {
 
     // Seed rows straight into the same database (WAL lets both write).
     let url = format!("sqlite://{}", dir.path().join("proctor.db").display());
-    let store = Store::open(&url, &dir.path().join("seed-blobs"))
+    let seed_blobs = dir.path().join("seed-blobs");
+    let store = Store::open(&url, &seed_blobs.display().to_string(), &seed_blobs)
         .await
         .unwrap();
     let started = Instant::now();

@@ -1,10 +1,12 @@
-//! `proctor serve`'s settings: flags that also read environment variables.
+//! `proctor serve`'s and `proctor worker`'s settings: flags that also read
+//! environment variables.
 
 use std::net::SocketAddr;
 use std::path::PathBuf;
 use std::time::Duration;
 
 use crate::http::access::{AuthMode, ReadAccess};
+use crate::labels::Labels;
 
 /// Where the service keeps its data; shared by `serve` and `token`, which
 /// acts on the same database.
@@ -18,9 +20,21 @@ pub struct DataArgs {
         default_value = "./proctor-data"
     )]
     pub data_dir: PathBuf,
-    /// Database URL; by default a SQLite file in the data dir.
+    /// Database URL: `sqlite://FILE` (by default a file in the data dir) or
+    /// `postgres://USER@HOST/DB`, which many services and workers can share.
     #[arg(long, global = true, env = "PROCTOR_DATABASE_URL")]
     pub database_url: Option<String>,
+    /// Where stored models and sets live: a folder (by default the data
+    /// dir), or `s3://bucket/prefix` in S3-compatible object storage (each
+    /// process then keeps copies in its data dir). Processes sharing a
+    /// database share this store.
+    #[arg(
+        long,
+        global = true,
+        env = "PROCTOR_BLOB_STORE",
+        value_name = "FOLDER|s3://BUCKET/PREFIX"
+    )]
+    pub blob_store: Option<String>,
 }
 
 impl DataArgs {
@@ -29,6 +43,77 @@ impl DataArgs {
             .clone()
             .unwrap_or_else(|| format!("sqlite://{}", self.data_dir.join("proctor.db").display()))
     }
+
+    pub fn blob_store(&self) -> String {
+        self.blob_store
+            .clone()
+            .unwrap_or_else(|| self.data_dir.display().to_string())
+    }
+}
+
+/// How a process runs evaluations: shared by `serve` (whose workers run
+/// inside it) and `worker`.
+#[derive(Debug, Clone, clap::Args)]
+pub struct RunArgs {
+    /// Evaluations run at once in this process (0 with `serve`: HTTP only,
+    /// `proctor worker` processes run the evaluations).
+    #[arg(long, env = "PROCTOR_WORKERS", default_value_t = 1)]
+    pub workers: usize,
+    /// Labels of this process's workers, `key=value,…`; an evaluation's
+    /// `runs_on` names the labels a worker must carry.
+    #[arg(long, env = "PROCTOR_LABELS", default_value = "", value_parser = parse_labels)]
+    pub labels: Labels,
+    /// Seconds a claimed evaluation stays claimed without its worker
+    /// renewing the claim; after that another worker runs it.
+    #[arg(long, env = "PROCTOR_LEASE_SECONDS", default_value_t = 30.0)]
+    pub lease_seconds: f64,
+    /// Wall-time limit per evaluation (and per upload check), in seconds.
+    #[arg(long, env = "PROCTOR_EVAL_TIMEOUT", default_value_t = 3600)]
+    pub eval_timeout: u64,
+    /// Address-space limit per evaluation (and per upload check), in MiB; 0 for none.
+    #[arg(long, env = "PROCTOR_EVAL_MEMORY", default_value_t = 4096)]
+    pub eval_memory: u64,
+    /// Models run at once in an evaluation's bulk pass; 0 means one per logical core.
+    #[arg(long, env = "PROCTOR_BULK_THREADS", default_value_t = 0)]
+    pub bulk_threads: usize,
+    /// The file every Proctor process on this machine locks while it times
+    /// models, so that timed rounds run alone (by default one per machine
+    /// in the temporary folder).
+    #[arg(long, env = "PROCTOR_CPU_LOCK", value_name = "FILE")]
+    pub cpu_lock: Option<PathBuf>,
+}
+
+fn parse_labels(text: &str) -> Result<Labels, String> {
+    crate::labels::parse(text)
+}
+
+impl RunArgs {
+    pub fn eval_timeout(&self) -> Duration {
+        Duration::from_secs(self.eval_timeout)
+    }
+
+    pub fn eval_memory_bytes(&self) -> Option<u64> {
+        (self.eval_memory > 0).then_some(self.eval_memory << 20)
+    }
+
+    pub fn lease(&self) -> Duration {
+        Duration::from_secs_f64(self.lease_seconds.clamp(0.5, 86_400.0))
+    }
+
+    pub fn cpu_lock(&self) -> PathBuf {
+        self.cpu_lock
+            .clone()
+            .unwrap_or_else(|| std::env::temp_dir().join("proctor-timing.lock"))
+    }
+}
+
+/// `proctor worker`'s settings: where the shared data is, and how to run.
+#[derive(Debug, Clone, clap::Args)]
+pub struct WorkerArgs {
+    #[command(flatten)]
+    pub data: DataArgs,
+    #[command(flatten)]
+    pub run: RunArgs,
 }
 
 #[derive(Debug, Clone, clap::Args)]
@@ -56,18 +141,8 @@ pub struct ServeArgs {
         default_value_t = 30
     )]
     pub upload_idle_timeout: u64,
-    /// Evaluations run at once.
-    #[arg(long, env = "PROCTOR_WORKERS", default_value_t = 1)]
-    pub workers: usize,
-    /// Wall-time limit per evaluation (and per upload check), in seconds.
-    #[arg(long, env = "PROCTOR_EVAL_TIMEOUT", default_value_t = 3600)]
-    pub eval_timeout: u64,
-    /// Address-space limit per evaluation (and per upload check), in MiB; 0 for none.
-    #[arg(long, env = "PROCTOR_EVAL_MEMORY", default_value_t = 4096)]
-    pub eval_memory: u64,
-    /// Models run at once in an evaluation's bulk pass; 0 means one per logical core.
-    #[arg(long, env = "PROCTOR_BULK_THREADS", default_value_t = 0)]
-    pub bulk_threads: usize,
+    #[command(flatten)]
+    pub run: RunArgs,
     /// Upload and creation checks that may run at once, each in its own process.
     #[arg(long, env = "PROCTOR_CHECK_SLOTS", default_value_t = 2)]
     pub check_slots: usize,
@@ -117,13 +192,5 @@ impl ServeArgs {
         } else {
             AuthMode::Required
         })
-    }
-
-    pub fn eval_timeout(&self) -> Duration {
-        Duration::from_secs(self.eval_timeout)
-    }
-
-    pub fn eval_memory_bytes(&self) -> Option<u64> {
-        (self.eval_memory > 0).then_some(self.eval_memory << 20)
     }
 }

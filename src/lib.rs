@@ -16,6 +16,8 @@ pub mod engine;
 pub mod error;
 /// Routes, extractors and problem+json rendering.
 pub mod http;
+/// Worker labels and how `runs_on` matches them.
+pub mod labels;
 /// RFC 9457 problem objects.
 pub mod problem;
 /// The durable queue and its workers.

@@ -19,6 +19,8 @@ struct Cli {
 enum Command {
     /// Run the HTTP service and its evaluation workers.
     Serve(proctor::config::ServeArgs),
+    /// Run evaluations from a shared queue (PostgreSQL), without HTTP.
+    Worker(proctor::config::WorkerArgs),
     /// Submit a teacher, students and an evaluation set; exit with the verdict.
     Submit(Box<proctor::cli::submit::SubmitArgs>),
     /// Follow an evaluation created earlier to its verdict (exit as submit).
@@ -38,8 +40,11 @@ enum Command {
 
 fn main() -> anyhow::Result<()> {
     let cli = Cli::parse();
+    // One TLS crypto provider for every client in the process (object
+    // storage's among them), as the service's own TLS uses.
+    let _ = rustls::crypto::ring::default_provider().install_default();
     let default_level = match cli.command {
-        Command::Serve(_) => "info",
+        Command::Serve(_) | Command::Worker(_) => "info",
         _ => "warn",
     };
     tracing_subscriber::fmt()
@@ -52,6 +57,7 @@ fn main() -> anyhow::Result<()> {
     let runtime = || tokio::runtime::Runtime::new();
     match cli.command {
         Command::Serve(args) => runtime()?.block_on(proctor::server::serve(args)),
+        Command::Worker(args) => runtime()?.block_on(proctor::server::work(args)),
         Command::Submit(args) => {
             let outcome = runtime()?.block_on(proctor::cli::submit::run(&args));
             std::process::exit(exit::code("submit", outcome))

@@ -61,9 +61,13 @@ fn new_secret() -> Result<String, Exit> {
 }
 
 pub async fn run(args: &TokenCommand) -> Result<i32, Exit> {
-    let store = Store::open(&args.data.database_url(), &args.data.data_dir)
-        .await
-        .map_err(|e| Exit::server(format!("cannot open the service's database: {e}")))?;
+    let store = Store::open(
+        &args.data.database_url(),
+        &args.data.blob_store(),
+        &args.data.data_dir,
+    )
+    .await
+    .map_err(|e| Exit::server(format!("cannot open the service's database: {e}")))?;
     let db = |e: crate::store::StoreError| Exit::server(format!("database: {e}"));
     match &args.action {
         TokenAction::Create {

@@ -159,7 +159,10 @@ pub fn assemble(
         project: job.project.clone(),
         created_at: job.created_at,
         finished_at: OffsetDateTime::now_utc(),
-        environment: Environment::current(bulk_threads, timed_kernels(setup)),
+        environment: Environment {
+            worker: job.worker.clone(),
+            ..Environment::current(bulk_threads, timed_kernels(setup))
+        },
         settings: ReportSettings {
             temperature: s.temperature,
             alpha: s.alpha,
@@ -169,6 +172,7 @@ pub fn assemble(
             gates: s.gates.clone(),
             output: s.output.clone(),
             baseline: job.baseline.as_ref().map(|b| b.id),
+            runs_on: s.runs_on.clone(),
         },
         dataset: DatasetSummary {
             id: job.dataset.id,

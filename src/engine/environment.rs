@@ -52,6 +52,17 @@ pub struct Environment {
     pub engine: EngineVersion,
     pub service_version: String,
     pub os: String,
+    /// The worker that measured, when workers run apart from the service.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub worker: Option<WorkerName>,
+}
+
+/// A worker as a report names it.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct WorkerName {
+    pub id: uuid::Uuid,
+    pub hostname: String,
+    pub labels: std::collections::BTreeMap<String, String>,
 }
 
 pub const TRACT_VERSION: &str = env!("PROCTOR_TRACT_VERSION");
@@ -76,11 +87,12 @@ impl Environment {
             },
             service_version: env!("CARGO_PKG_VERSION").into(),
             os: os_name(),
+            worker: None,
         }
     }
 }
 
-fn cpu_model() -> String {
+pub fn cpu_model() -> String {
     std::fs::read_to_string("/proc/cpuinfo")
         .ok()
         .and_then(|text| {

@@ -9,6 +9,7 @@ use serde::{Deserialize, Serialize};
 use time::OffsetDateTime;
 use uuid::Uuid;
 
+use super::environment::WorkerName;
 use super::error::EngineResult;
 use super::settings::Settings;
 
@@ -48,6 +49,10 @@ pub struct Job {
     /// When a worker claimed this attempt (for the report's queued time).
     #[serde(default, with = "time::serde::rfc3339::option")]
     pub claimed_at: Option<OffsetDateTime>,
+    /// The worker running it, when that is a `proctor worker` process
+    /// rather than the service itself (the report names it).
+    #[serde(default)]
+    pub worker: Option<WorkerName>,
 }
 
 impl Job {

@@ -145,6 +145,9 @@ pub struct Settings {
     pub latency: LatencySettings,
     pub rank_by: RankBy,
     pub gates: Gates,
+    /// Labels a worker must carry to run the evaluation; empty: any worker.
+    #[serde(default)]
+    pub runs_on: BTreeMap<String, String>,
 }
 
 impl Default for Settings {
@@ -158,6 +161,7 @@ impl Default for Settings {
             latency: LatencySettings::default(),
             rank_by: RankBy::Agreement,
             gates: Gates::default(),
+            runs_on: BTreeMap::new(),
         }
     }
 }

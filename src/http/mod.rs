@@ -12,6 +12,7 @@ mod health;
 mod negotiate;
 mod projects;
 mod telemetry;
+mod workers;
 
 use std::time::Duration;
 
@@ -119,6 +120,7 @@ fn table() -> Vec<(&'static str, &'static str, Kind, MethodRouter<App>)> {
             Bounded,
             put(projects::set_baseline),
         ),
+        ("get", "/v1/workers", Bounded, get(workers::list)),
         ("get", "/healthz", Bounded, get(health::healthz)),
         ("get", "/readyz", Bounded, get(health::readyz)),
         ("get", "/openapi.yaml", Bounded, get(openapi)),

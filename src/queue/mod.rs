@@ -5,4 +5,4 @@
 
 mod worker;
 
-pub use worker::Workers;
+pub use worker::{WorkerSetup, Workers};

@@ -11,24 +11,87 @@ use tokio_util::sync::CancellationToken;
 use tracing::Instrument;
 use uuid::Uuid;
 
+use time::OffsetDateTime;
+
 use crate::engine::Job;
+use crate::engine::environment::WorkerName;
 use crate::error::AppError;
+use crate::labels::Labels;
 use crate::problem::Problem;
 use crate::sandbox::{Sandbox, SandboxError};
-use crate::store::{EvaluationRecord, Progress, Status, Store, StoreError};
+use crate::store::{EvaluationRecord, Lease, Progress, Status, Store, StoreError, WorkerRecord};
 use crate::telemetry::Telemetry;
+
+/// How this process's workers take work.
+#[derive(Debug, Clone)]
+pub struct WorkerSetup {
+    /// Evaluations run at once: one worker each (0: this process only serves).
+    pub slots: usize,
+    /// The labels each worker carries (`runs_on` matches them).
+    pub labels: Labels,
+    /// How long a claim holds without renewal.
+    pub lease: Duration,
+    /// Whether the workers run apart from the service (`proctor worker`):
+    /// reports then name the worker.
+    pub apart: bool,
+}
+
+impl WorkerSetup {
+    /// How often a worker renews its lease and its heartbeat: often enough
+    /// that a lease outlives a few missed renewals, and that a cancel made
+    /// in another process stops the run within a couple of seconds.
+    pub fn beat(&self) -> Duration {
+        (self.lease / 5).clamp(Duration::from_millis(100), Duration::from_secs(2))
+    }
+}
 
 struct Inner {
     store: Store,
     sandbox: Sandbox,
     telemetry: Arc<Telemetry>,
-    /// Who claims, as written in `claimed_by`: this process and the worker.
-    instance: Uuid,
+    setup: WorkerSetup,
+    host: Host,
     wake: Notify,
     running: Mutex<HashMap<Uuid, CancellationToken>>,
     shutdown: CancellationToken,
     alive: AtomicUsize,
     handles: Mutex<Vec<JoinHandle<()>>>,
+}
+
+/// The machine and process the workers run in, as the workers list shows them.
+#[derive(Debug, Clone)]
+struct Host {
+    hostname: String,
+    cpu: String,
+    pid: u32,
+}
+
+impl Host {
+    fn this_one() -> Host {
+        Host {
+            hostname: hostname(),
+            cpu: crate::engine::environment::cpu_model(),
+            pid: std::process::id(),
+        }
+    }
+}
+
+fn hostname() -> String {
+    std::fs::read_to_string("/proc/sys/kernel/hostname")
+        .map(|h| h.trim().to_string())
+        .ok()
+        .filter(|h| !h.is_empty())
+        .unwrap_or_else(|| "unknown".into())
+}
+
+/// Whether no process has this id here (signal 0 checks without sending).
+fn process_gone(pid: u32) -> bool {
+    let Ok(pid) = i32::try_from(pid) else {
+        return true;
+    };
+    // SAFETY: kill with signal 0 only checks that the process exists.
+    let r = unsafe { libc::kill(pid, 0) };
+    r != 0 && std::io::Error::last_os_error().raw_os_error() == Some(libc::ESRCH)
 }
 
 /// A handle on this process's workers, cheap to clone into every request.
@@ -55,35 +118,43 @@ impl Drop for Alive<'_> {
 }
 
 impl Workers {
-    /// Starts `count` workers. Evaluations a dead process left running are
-    /// recovered first.
+    /// Starts `setup.slots` workers. Claims held by processes of this
+    /// machine that are gone end first, and lapsed claims go back to the
+    /// queue, so a restart picks up what a crash left.
     pub async fn start(
         store: Store,
         sandbox: Sandbox,
         telemetry: Arc<Telemetry>,
-        count: usize,
+        setup: WorkerSetup,
     ) -> Result<Workers, StoreError> {
-        let (requeued, failed) = store.recover_interrupted().await?;
-        if requeued + failed > 0 {
-            tracing::info!(
-                requeued,
-                failed,
-                "recovered evaluations interrupted by a restart"
-            );
+        let host = Host::this_one();
+        if setup.slots > 0 {
+            store
+                .end_leases_of_gone_workers(&host.hostname, process_gone)
+                .await?;
+            let (requeued, failed) = store.reclaim_lapsed(OffsetDateTime::now_utc()).await?;
+            if requeued + failed > 0 {
+                tracing::info!(
+                    requeued,
+                    failed,
+                    "recovered evaluations whose worker stopped"
+                );
+            }
         }
         let inner = Arc::new(Inner {
             store,
             sandbox,
             telemetry,
-            instance: Uuid::now_v7(),
+            host,
             wake: Notify::new(),
             running: Mutex::new(HashMap::new()),
             shutdown: CancellationToken::new(),
             alive: AtomicUsize::new(0),
             handles: Mutex::new(Vec::new()),
+            setup,
         });
-        let handles = (0..count.max(1))
-            .map(|n| tokio::spawn(worker(inner.clone(), n)))
+        let handles = (0..inner.setup.slots)
+            .map(|_| tokio::spawn(worker(inner.clone())))
             .collect();
         *inner.handles.lock().unwrap_or_else(|p| p.into_inner()) = handles;
         Ok(Workers { inner })
@@ -94,15 +165,22 @@ impl Workers {
         self.inner.wake.notify_one();
     }
 
-    /// Stops a running evaluation's child, if this process runs it.
+    /// Stops a running evaluation's child, if this process runs it (one
+    /// run elsewhere stops at its worker's next renewal).
     pub fn stop(&self, id: Uuid) {
         if let Some(token) = self.inner.running().get(&id) {
             token.cancel();
         }
     }
 
+    /// Workers of this process whose task is running.
     pub fn alive(&self) -> usize {
         self.inner.alive.load(Ordering::Relaxed)
+    }
+
+    /// How long after its last heartbeat a worker no longer counts as live.
+    pub fn silent_after(&self) -> Duration {
+        self.inner.setup.lease
     }
 
     /// Stops the workers: running evaluations are put back in the queue.
@@ -124,12 +202,43 @@ impl Inner {
     }
 }
 
-async fn worker(inner: Arc<Inner>, n: usize) {
+async fn worker(inner: Arc<Inner>) {
     let _alive = Alive::count(&inner.alive);
-    let owner = format!("{}/{n}", inner.instance);
+    let now = OffsetDateTime::now_utc();
+    let lease = Lease {
+        worker: Uuid::now_v7(),
+        labels: inner.setup.labels.clone(),
+        term: inner.setup.lease,
+    };
+    let me = WorkerRecord {
+        id: lease.worker,
+        hostname: inner.host.hostname.clone(),
+        cpu: inner.host.cpu.clone(),
+        labels: lease.labels.clone(),
+        started_at: now,
+        heartbeat_at: now,
+        evaluation: None,
+        pid: inner.host.pid,
+    };
+    while let Err(e) = inner.store.register_worker(&me).await {
+        tracing::error!(error = %e, "registering the worker failed");
+        tokio::select! {
+            _ = tokio::time::sleep(Duration::from_secs(1)) => {}
+            _ = inner.shutdown.cancelled() => return,
+        }
+    }
+    let mut last_beat = std::time::Instant::now();
     while !inner.shutdown.is_cancelled() {
-        match inner.store.claim_next(&owner).await {
-            Ok(Some(record)) => run_one(&inner, &owner, record).await,
+        if last_beat.elapsed() >= inner.setup.beat() {
+            last_beat = std::time::Instant::now();
+            idle_beat(&inner, &lease).await;
+        }
+        match inner.store.claim_next(&lease).await {
+            Ok(Some(record)) => {
+                run_one(&inner, &lease, record).await;
+                last_beat = std::time::Instant::now();
+                idle_beat(&inner, &lease).await;
+            }
             Ok(None) => {
                 tokio::select! {
                     _ = inner.wake.notified() => {}
@@ -143,17 +252,78 @@ async fn worker(inner: Arc<Inner>, n: usize) {
             }
         }
     }
+    if let Err(e) = inner.store.remove_worker(lease.worker).await {
+        tracing::warn!(error = %e, "removing the worker from the list failed");
+    }
 }
 
-async fn run_one(inner: &Arc<Inner>, owner: &str, record: EvaluationRecord) {
+/// An idle worker's beat: it is alive, and claims that lapsed anywhere go
+/// back to the queue.
+async fn idle_beat(inner: &Inner, lease: &Lease) {
+    let now = OffsetDateTime::now_utc();
+    if let Err(e) = inner.store.worker_heartbeat(lease.worker, now, None).await {
+        tracing::warn!(error = %e, "the worker's heartbeat failed");
+    }
+    match inner.store.reclaim_lapsed(now).await {
+        Ok((requeued, failed)) if requeued + failed > 0 => {
+            tracing::info!(requeued, failed, "took back evaluations whose lease lapsed");
+        }
+        Ok(_) => {}
+        Err(e) => tracing::warn!(error = %e, "taking back lapsed evaluations failed"),
+    }
+}
+
+/// Renews the lease while the evaluation runs; stops the run once the
+/// lease is no longer this worker's (canceled elsewhere, or lapsed).
+async fn keep_lease(store: Store, lease: Lease, id: Uuid, beat: Duration, run: CancellationToken) {
+    loop {
+        tokio::select! {
+            _ = tokio::time::sleep(beat) => {}
+            _ = run.cancelled() => return,
+        }
+        match store.renew(id, &lease).await {
+            Ok(true) => {}
+            Ok(false) => {
+                tracing::info!("the lease is no longer ours (canceled, or it lapsed): stopping");
+                run.cancel();
+                return;
+            }
+            Err(e) => tracing::warn!(error = %e, "renewing the lease failed"),
+        }
+        let now = OffsetDateTime::now_utc();
+        if let Err(e) = store.worker_heartbeat(lease.worker, now, Some(id)).await {
+            tracing::warn!(error = %e, "the worker's heartbeat failed");
+        }
+    }
+}
+
+async fn run_one(inner: &Arc<Inner>, lease: &Lease, record: EvaluationRecord) {
     let id = record.id;
     let span = tracing::info_span!("evaluation", %id, attempt = record.attempts);
-    inner.sandbox.hold_before_start().await;
+    tracing::info!(%id, attempt = record.attempts, "claimed");
+    if let Err(e) = inner
+        .store
+        .worker_heartbeat(lease.worker, OffsetDateTime::now_utc(), Some(id))
+        .await
+    {
+        tracing::warn!(error = %e, "the worker's heartbeat failed");
+    }
     let token = inner.shutdown.child_token();
     inner.running().insert(id, token.clone());
-    let outcome = execute(inner, owner, &record, &token)
+    // The lease is kept from the claim on, through the test hold too.
+    let keeper = tokio::spawn(keep_lease(
+        inner.store.clone(),
+        lease.clone(),
+        id,
+        inner.setup.beat(),
+        token.clone(),
+    ));
+    inner.sandbox.hold_before_start().await;
+    let outcome = execute(inner, lease, &record, &token)
         .instrument(span)
         .await;
+    keeper.abort();
+    let _ = keeper.await;
     inner.running().remove(&id);
     if let Err(e) = outcome {
         tracing::error!(error = %e, "recording an evaluation's outcome failed");
@@ -162,11 +332,12 @@ async fn run_one(inner: &Arc<Inner>, owner: &str, record: EvaluationRecord) {
 
 async fn execute(
     inner: &Arc<Inner>,
-    owner: &str,
+    lease: &Lease,
     record: &EvaluationRecord,
     token: &CancellationToken,
 ) -> Result<(), StoreError> {
     let store = &inner.store;
+    let owner = &lease.holder();
     let id = record.id;
     // A cancel that landed between the claim and the registration of this
     // evaluation's token found nothing to stop: look again now.
@@ -180,7 +351,12 @@ async fn execute(
     }
     let job = match store.job(record).await {
         Ok(job) => Job {
-            claimed_at: Some(time::OffsetDateTime::now_utc()),
+            claimed_at: Some(OffsetDateTime::now_utc()),
+            worker: inner.setup.apart.then(|| WorkerName {
+                id: lease.worker,
+                hostname: inner.host.hostname.clone(),
+                labels: lease.labels.clone(),
+            }),
             ..job
         },
         Err(e) => {
@@ -209,7 +385,12 @@ async fn execute(
     let ran = inner
         .sandbox
         .run_evaluation(&job, token, |stage, done, total| {
-            let _ = tx.send(Some(Progress { stage, done, total }));
+            let _ = tx.send(Some(Progress {
+                stage,
+                done,
+                total,
+                waiting_for: None,
+            }));
         })
         .await;
     drop(tx);

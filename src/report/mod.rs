@@ -8,6 +8,8 @@ pub mod numbers;
 
 pub use finite::first_non_finite;
 
+use std::collections::BTreeMap;
+
 use serde::{Deserialize, Serialize};
 use time::OffsetDateTime;
 use uuid::Uuid;
@@ -75,6 +77,10 @@ pub struct ReportSettings {
     pub output: Option<OutputChoice>,
     /// The baseline model's id, as resolved when the evaluation was created.
     pub baseline: Option<Uuid>,
+    /// The labels a worker needed to run it (absent from reports stored
+    /// before workers had labels).
+    #[serde(default)]
+    pub runs_on: BTreeMap<String, String>,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]

@@ -1,5 +1,6 @@
 //! The machine-wide CPU lock between evaluations and checks: an advisory
-//! lock on one file in the data dir, shared while bulk passes and upload or
+//! lock on one file that every Proctor process of the machine opens
+//! (`--cpu-lock`), shared while bulk passes and upload or
 //! creation checks run, exclusive for timed rounds. The kernel drops it when
 //! its holder exits, however it exits, so a crashed process never leaves
 //! the machine locked.

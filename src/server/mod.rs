@@ -11,13 +11,16 @@ use anyhow::Context;
 use tokio::task::JoinHandle;
 use tokio_util::sync::CancellationToken;
 
-use crate::config::ServeArgs;
+use std::sync::Arc;
+
+use crate::config::{DataArgs, RunArgs, ServeArgs, WorkerArgs};
 use crate::engine::Options;
 use crate::http::access::{AccessConfig, AuthMode};
-use crate::queue::Workers;
+use crate::queue::{WorkerSetup, Workers};
 use crate::sandbox::{Hold, Limits, Sandbox, SandboxConfig};
 use crate::service::{App, Housekeeping, ServiceConfig};
 use crate::store::Store;
+use crate::telemetry::Telemetry;
 
 /// The wall-time limit of one check (an upload's inspection, a preflight).
 const CHECK_TIME: std::time::Duration = std::time::Duration::from_secs(300);
@@ -63,10 +66,69 @@ fn lock_data_dir(dir: &std::path::Path) -> anyhow::Result<std::fs::File> {
     }
 }
 
+/// What serving and working both open: the data dir (locked), the store
+/// and the sandbox.
+struct Base {
+    lock: std::fs::File,
+    store: Store,
+    sandbox: Sandbox,
+}
+
+impl Base {
+    async fn open(data: &DataArgs, run: &RunArgs, checks: (usize, usize)) -> anyhow::Result<Base> {
+        std::fs::create_dir_all(&data.data_dir)
+            .with_context(|| format!("creating the data dir {}", data.data_dir.display()))?;
+        let lock = lock_data_dir(&data.data_dir)?;
+        let store = Store::open(&data.database_url(), &data.blob_store(), &data.data_dir)
+            .await
+            .context("opening the store")?;
+        let limits = Limits {
+            memory_bytes: run.eval_memory_bytes(),
+            wall_time: run.eval_timeout(),
+        };
+        let sandbox = Sandbox::new(SandboxConfig {
+            exe: std::env::current_exe().context("finding this program")?,
+            check_limits: Limits {
+                wall_time: limits.wall_time.min(CHECK_TIME),
+                ..limits.clone()
+            },
+            limits,
+            check_slots: checks.0,
+            check_waiting: checks.1,
+            cpu_lock: run.cpu_lock(),
+            options: Options {
+                teacher_cache: Some(store.blobs.teacher_scores_dir()),
+                bulk_threads: run.bulk_threads,
+            },
+            hold: Hold::from_env(&data.data_dir),
+        });
+        Ok(Base {
+            lock,
+            store,
+            sandbox,
+        })
+    }
+
+    async fn workers_of(
+        store: &Store,
+        sandbox: &Sandbox,
+        run: &RunArgs,
+        apart: bool,
+        telemetry: Arc<Telemetry>,
+    ) -> anyhow::Result<Workers> {
+        let setup = WorkerSetup {
+            slots: run.workers,
+            labels: run.labels.clone(),
+            lease: run.lease(),
+            apart,
+        };
+        Workers::start(store.clone(), sandbox.clone(), telemetry, setup)
+            .await
+            .context("starting the workers")
+    }
+}
+
 pub async fn start(args: &ServeArgs) -> anyhow::Result<Running> {
-    std::fs::create_dir_all(&args.data.data_dir)
-        .with_context(|| format!("creating the data dir {}", args.data.data_dir.display()))?;
-    let lock = lock_data_dir(&args.data.data_dir)?;
     let tls = match (&args.tls_cert, &args.tls_key) {
         (Some(cert), Some(key)) => Some(tls::acceptor(cert, key)?),
         (None, None) => None,
@@ -80,38 +142,18 @@ pub async fn start(args: &ServeArgs) -> anyhow::Result<Running> {
     if access.auth == AuthMode::Off && !args.listen.ip().is_loopback() {
         tracing::warn!(listen = %args.listen, "access control is off on a non-loopback address; only localhost host names are served");
     }
-    let store = Store::open(&args.data.database_url(), &args.data.data_dir)
-        .await
-        .context("opening the store")?;
-    let limits = Limits {
-        memory_bytes: args.eval_memory_bytes(),
-        wall_time: args.eval_timeout(),
-    };
-    let sandbox = Sandbox::new(SandboxConfig {
-        exe: std::env::current_exe().context("finding this program")?,
-        check_limits: Limits {
-            wall_time: limits.wall_time.min(CHECK_TIME),
-            ..limits.clone()
-        },
-        limits,
-        check_slots: args.check_slots,
-        check_waiting: args.check_waiting,
-        cpu_lock: store.blobs.cpu_lock_path(),
-        options: Options {
-            teacher_cache: Some(store.blobs.teacher_scores_dir()),
-            bulk_threads: args.bulk_threads,
-        },
-        hold: Hold::from_env(&args.data.data_dir),
-    });
-    let telemetry = std::sync::Arc::new(crate::telemetry::Telemetry::default());
-    let workers = Workers::start(
-        store.clone(),
-        sandbox.clone(),
-        telemetry.clone(),
-        args.workers,
+    let Base {
+        lock,
+        store,
+        sandbox,
+    } = Base::open(
+        &args.data,
+        &args.run,
+        (args.check_slots, args.check_waiting),
     )
-    .await
-    .context("starting the workers")?;
+    .await?;
+    let telemetry = Arc::new(Telemetry::default());
+    let workers = Base::workers_of(&store, &sandbox, &args.run, false, telemetry.clone()).await?;
     let app = App {
         store: store.clone(),
         sandbox,
@@ -169,6 +211,41 @@ impl Running {
         shutdown_signal().await;
         self.stop().await
     }
+}
+
+/// `proctor worker`: runs evaluations from the shared queue until SIGTERM
+/// or Ctrl-C; what runs then goes back to the queue.
+pub async fn work(args: WorkerArgs) -> anyhow::Result<()> {
+    if args.run.workers == 0 {
+        anyhow::bail!("a worker runs at least one evaluation at a time (--workers 1 or more)");
+    }
+    let Base {
+        lock,
+        store,
+        sandbox,
+    } = Base::open(&args.data, &args.run, (1, 1)).await?;
+    let workers = Base::workers_of(
+        &store,
+        &sandbox,
+        &args.run,
+        true,
+        Arc::new(Telemetry::default()),
+    )
+    .await?;
+    tracing::info!(
+        data_dir = %args.data.data_dir.display(),
+        labels = ?args.run.labels,
+        workers = args.run.workers,
+        "working"
+    );
+    // Scripts and tests read this line to know the worker has registered.
+    println!("proctor worker running");
+    shutdown_signal().await;
+    tracing::info!("stopping: running evaluations go back to the queue");
+    workers.shutdown().await;
+    store.close().await;
+    drop(lock);
+    Ok(())
 }
 
 /// `proctor serve`.

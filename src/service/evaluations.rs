@@ -59,6 +59,9 @@ pub struct EvaluationRequest {
     /// The student in production to compare every candidate with.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub baseline: Option<BaselineChoice>,
+    /// Labels of the workers that may run it.
+    #[serde(default)]
+    pub runs_on: BTreeMap<String, String>,
 }
 
 /// `baseline` in a request: a model id, or "current", the project's
@@ -112,6 +115,7 @@ impl EvaluationRequest {
             gates: Gates::default(),
             tags: BTreeMap::new(),
             baseline: None,
+            runs_on: BTreeMap::new(),
         }
     }
 }
@@ -128,6 +132,7 @@ impl EvaluationRequest {
             latency: self.latency,
             rank_by: self.rank_by,
             gates: self.gates.clone(),
+            runs_on: self.runs_on.clone(),
         }
     }
 }
@@ -163,6 +168,7 @@ impl App {
         )?;
         limits::students(&req.students)?;
         limits::tags(&req.tags)?;
+        limits::labels("runs_on", &req.runs_on)?;
         let settings = req.settings();
         let teacher = self.named_model(req.teacher, "teacher").await?;
         let mut students = Vec::with_capacity(req.students.len());
@@ -289,17 +295,22 @@ impl App {
     }
 
     pub async fn evaluation(&self, id: Uuid) -> Result<EvaluationRecord, AppError> {
-        self.store
+        let mut record = self
+            .store
             .evaluation(id)
             .await?
-            .ok_or_else(|| AppError::NotFound(format!("no evaluation has id {id}")))
+            .ok_or_else(|| AppError::NotFound(format!("no evaluation has id {id}")))?;
+        self.note_waiting(std::slice::from_mut(&mut record)).await?;
+        Ok(record)
     }
 
     pub async fn evaluations(&self, q: &ListQuery) -> Result<Page<EvaluationRecord>, AppError> {
-        Ok(self
+        let mut page = self
             .store
             .list_evaluations(&q.filter, q.limit, q.cursor)
-            .await?)
+            .await?;
+        self.note_waiting(&mut page.items).await?;
+        Ok(page)
     }
 
     /// The stored report, as the JSON text the engine produced.

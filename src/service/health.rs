@@ -43,7 +43,8 @@ impl App {
                 )));
             }
         }
-        if self.workers.alive() == 0 {
+        // A worker of this process, or one elsewhere on the shared queue.
+        if self.workers.alive() == 0 && self.live_workers().await?.is_empty() {
             return Err(not_ready("no evaluation worker is running".into()));
         }
         Ok(())

@@ -1,5 +1,6 @@
 //! What the service tidies on its own, once a minute: temporary upload
-//! files no upload holds, finished evaluations past `--keep-days`, and the
+//! files no upload holds, evaluations whose lease lapsed, workers silent
+//! for ten minutes, finished evaluations past `--keep-days`, and the
 //! teacher-score cache beyond `--cache-max-bytes`.
 
 use std::time::Duration;
@@ -35,6 +36,23 @@ impl App {
                 "removed temporary upload files no upload holds"
             ),
             Err(e) => tracing::warn!(error = %e, "sweeping temporary upload files failed"),
+        }
+        // Workers killed without a goodbye leave rows, and with no worker
+        // here nobody else may take back what they held.
+        let now = OffsetDateTime::now_utc();
+        match self.store.reclaim_lapsed(now).await {
+            Ok((0, 0)) => {}
+            Ok((requeued, failed)) => {
+                tracing::info!(requeued, failed, "took back evaluations whose lease lapsed")
+            }
+            Err(e) => tracing::warn!(error = %e, "taking back lapsed evaluations failed"),
+        }
+        if let Err(e) = self
+            .store
+            .forget_workers_before(now - super::workers::LISTED_FOR)
+            .await
+        {
+            tracing::warn!(error = %e, "forgetting silent workers failed");
         }
         if let Some(keep) = h.keep {
             let cutoff = OffsetDateTime::now_utc() - keep;

@@ -85,6 +85,12 @@ pub fn tags(tags: &BTreeMap<String, String>) -> Result<(), AppError> {
     Ok(())
 }
 
+/// Worker labels (`runs_on`, and `proctor worker --labels`): `key=value`
+/// pairs whose keys and values read unchanged in that form.
+pub fn labels(field: &str, labels: &BTreeMap<String, String>) -> Result<(), AppError> {
+    crate::labels::check(labels).map_err(|why| refuse(field, why))
+}
+
 pub fn students(students: &[Uuid]) -> Result<(), AppError> {
     if students.is_empty() {
         return Err(refuse("students", "give at least one student".into()));

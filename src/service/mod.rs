@@ -9,6 +9,7 @@ mod housekeeping;
 pub mod limits;
 mod projects;
 mod uploads;
+mod workers;
 
 pub use access::Caller;
 pub use dashboard::{EvaluationView, ListView, ReportView, TeacherView};

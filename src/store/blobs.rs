@@ -2,7 +2,9 @@
 //! temporary file while being hashed, then are renamed to a path derived
 //! from their SHA-256 alone — never from anything a user gave. A temporary
 //! file is removed however its upload ends (refused, failed, or the client
-//! gone), by a guard that only a commit disarms.
+//! gone), by a guard that only a commit disarms. With object storage
+//! (`remote`), a committed file is also stored there under the same
+//! address, and a process that lacks a file fetches it before use.
 
 use std::path::{Path, PathBuf};
 use std::time::{Duration, SystemTime};
@@ -11,6 +13,7 @@ use sha2::{Digest, Sha256};
 use tokio::fs;
 
 use super::error::StoreError;
+use super::remote::Remote;
 
 /// What kind of file a blob holds; each kind has its own folder.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -31,6 +34,8 @@ impl BlobKind {
 #[derive(Debug, Clone)]
 pub struct Blobs {
     root: PathBuf,
+    /// Where every process finds the blobs, when they are not on one disk.
+    remote: Option<Remote>,
 }
 
 /// A temporary file that is removed when dropped, unless kept.
@@ -131,13 +136,43 @@ async fn sync_dir(dir: &Path) -> std::io::Result<()> {
 }
 
 impl Blobs {
-    pub async fn open(root: &Path) -> Result<Blobs, StoreError> {
+    pub async fn open(root: &Path, remote: Option<Remote>) -> Result<Blobs, StoreError> {
         for sub in ["models", "datasets", "incoming", "teacher-scores"] {
             fs::create_dir_all(root.join(sub)).await?;
         }
         Ok(Blobs {
             root: root.to_owned(),
+            remote,
         })
+    }
+
+    /// The local path of a stored blob, fetched from object storage first
+    /// when this process has no copy yet. The copy is checked against its
+    /// address before it is kept.
+    pub async fn fetch(&self, kind: BlobKind, sha256: &str) -> Result<PathBuf, StoreError> {
+        let target = self.path_of(kind, sha256);
+        let Some(remote) = &self.remote else {
+            return Ok(target);
+        };
+        if fs::try_exists(&target).await? {
+            return Ok(target);
+        }
+        let scratch = self.scratch();
+        if !remote.download(kind, sha256, &scratch.file.path).await? {
+            return Err(StoreError::Corrupt(format!(
+                "{} {sha256} is recorded but not in object storage",
+                kind.folder()
+            )));
+        }
+        let received = self.seal(scratch).await?;
+        if received.sha256 != sha256 {
+            return Err(StoreError::Corrupt(format!(
+                "the object of {} {sha256} holds other bytes (SHA-256 {})",
+                kind.folder(),
+                received.sha256
+            )));
+        }
+        self.place(kind, received).await
     }
 
     pub fn root(&self) -> &Path {
@@ -151,11 +186,6 @@ impl Blobs {
     /// Where the engine keeps teacher scores between evaluations.
     pub fn teacher_scores_dir(&self) -> PathBuf {
         self.root.join("teacher-scores")
-    }
-
-    /// The file evaluations lock to share the CPU (see `sandbox::cpu_lock`).
-    pub fn cpu_lock_path(&self) -> PathBuf {
-        self.root.join("cpu.lock")
     }
 
     fn incoming_dir(&self) -> PathBuf {
@@ -200,11 +230,17 @@ impl Blobs {
     /// Moves a received file to its content address. A file already there
     /// holds the same bytes, so the new copy is dropped; a blob that had
     /// gone missing from disk is restored by it.
-    pub async fn commit(
-        &self,
-        kind: BlobKind,
-        mut received: Received,
-    ) -> Result<PathBuf, StoreError> {
+    pub async fn commit(&self, kind: BlobKind, received: Received) -> Result<PathBuf, StoreError> {
+        let sha256 = received.sha256.clone();
+        let target = self.place(kind, received).await?;
+        if let Some(remote) = &self.remote {
+            remote.upload(kind, &sha256, &target).await?;
+        }
+        Ok(target)
+    }
+
+    /// Moves a received file to its local address, unless one is there.
+    async fn place(&self, kind: BlobKind, mut received: Received) -> Result<PathBuf, StoreError> {
         let target = self.path_of(kind, &received.sha256);
         if !fs::try_exists(&target).await? {
             fs::rename(received.path(), &target).await?;
@@ -237,12 +273,22 @@ impl Blobs {
         .await
         .map_err(std::io::Error::other)??;
         drop(file);
+        if let Some(remote) = &self.remote {
+            remote.probe().await.map_err(std::io::Error::other)?;
+        }
         Ok(())
     }
 
-    /// Whether the blob of a stored record is on disk.
+    /// Whether the blob of a stored record is on disk (and in object
+    /// storage, when the blobs live there).
     pub async fn exists(&self, kind: BlobKind, sha256: &str) -> Result<bool, StoreError> {
-        Ok(fs::try_exists(self.path_of(kind, sha256)).await?)
+        if !fs::try_exists(self.path_of(kind, sha256)).await? {
+            return Ok(false);
+        }
+        match &self.remote {
+            Some(remote) => remote.has(kind, sha256).await,
+            None => Ok(true),
+        }
     }
 
     /// Clears temporary files no upload holds: all of them at start (a
@@ -268,7 +314,12 @@ impl Blobs {
     }
 
     /// Removes a stored blob (its record is gone); a file already gone is fine.
+    /// Copies other processes fetched stay until their data dir goes; no
+    /// record names them any more.
     pub async fn remove(&self, kind: BlobKind, sha256: &str) -> Result<(), StoreError> {
+        if let Some(remote) = &self.remote {
+            remote.delete(kind, sha256).await?;
+        }
         match fs::remove_file(self.path_of(kind, sha256)).await {
             Err(e) if e.kind() != std::io::ErrorKind::NotFound => Err(e.into()),
             _ => Ok(()),

@@ -7,7 +7,7 @@ use time::OffsetDateTime;
 use uuid::Uuid;
 
 use super::rows::{stage, verdict};
-use super::{EvaluationFilter, Page, Status, Store, StoreError, bind_filter, page};
+use super::{EvaluationFilter, Page, Status, Store, StoreError, page};
 use crate::engine::Stage;
 use crate::report::Verdict;
 
@@ -159,69 +159,73 @@ impl Store {
         limit: u32,
         cursor: Option<Uuid>,
     ) -> Result<Page<EvaluationRow>, StoreError> {
-        let q = sqlx::query_as(concat!(
-            "SELECT e.id, e.project, e.status, e.progress_stage, e.progress_done, e.progress_total,",
-            " e.created_at, e.verdict, e.teacher_id, t.name AS teacher_name, e.recommended_id,",
-            " e.dataset_id, d.name AS dataset_name, r.name AS recommended_name,",
-            tag_column!("commit"),
-            ",",
-            tag_column!("branch"),
-            ", (SELECT COUNT(*) FROM evaluation_students s WHERE s.evaluation_id = e.id) AS candidates",
-            " FROM evaluations e JOIN models t ON t.id = e.teacher_id",
-            " LEFT JOIN datasets d ON d.id = e.dataset_id",
-            " LEFT JOIN models r ON r.id = e.recommended_id",
-            evaluation_filter!()
-        ));
-        let rows: Vec<ListRow> = bind_filter(q, f, limit, cursor)
-            .fetch_all(&self.pool)
-            .await?;
-        let items = rows
-            .into_iter()
-            .map(EvaluationRow::try_from)
-            .collect::<Result<Vec<_>, _>>()?;
-        Ok(page(items, limit, |r| r.id))
+        on_pool!(self, |pool| {
+            let q = sqlx::query_as(concat!(
+                "SELECT e.id, e.project, e.status, e.progress_stage, e.progress_done, e.progress_total,",
+                " e.created_at, e.verdict, e.teacher_id, t.name AS teacher_name, e.recommended_id,",
+                " e.dataset_id, d.name AS dataset_name, r.name AS recommended_name,",
+                tag_column!("commit"),
+                ",",
+                tag_column!("branch"),
+                ", (SELECT COUNT(*) FROM evaluation_students s WHERE s.evaluation_id = e.id) AS candidates",
+                " FROM evaluations e JOIN models t ON t.id = e.teacher_id",
+                " LEFT JOIN datasets d ON d.id = e.dataset_id",
+                " LEFT JOIN models r ON r.id = e.recommended_id",
+                evaluation_filter!()
+            ));
+            let rows: Vec<ListRow> = bind_filter!(q, f, limit, cursor).fetch_all(pool).await?;
+            let items = rows
+                .into_iter()
+                .map(EvaluationRow::try_from)
+                .collect::<Result<Vec<_>, _>>()?;
+            Ok(page(items, limit, |r| r.id))
+        })
     }
 
     /// The first-ranked candidate of each succeeded evaluation of a
     /// teacher, grouped by project and evaluation set (figures on two sets
     /// do not belong on one line), oldest first inside each group.
     pub async fn teacher_trend(&self, teacher: Uuid) -> Result<Vec<TrendPoint>, StoreError> {
-        let rows: Vec<TrendRow> = sqlx::query_as(concat!(
-            "SELECT e.id AS evaluation, e.created_at, e.project, e.dataset_id,",
-            " d.name AS dataset_name, e.verdict, m.name AS model, c.agreement, c.p90_ms,",
-            tag_column!("commit"),
-            " FROM evaluations e",
-            " JOIN candidates c ON c.evaluation_id = e.id AND c.rank = 1",
-            " JOIN models m ON m.id = c.model_id",
-            " LEFT JOIN datasets d ON d.id = e.dataset_id",
-            " WHERE e.teacher_id = ?1 AND e.status = 'succeeded'",
-            " ORDER BY e.project, d.name, e.dataset_id, e.id"
-        ))
-        .bind(teacher)
-        .fetch_all(&self.pool)
-        .await?;
-        rows.into_iter().map(TrendPoint::try_from).collect()
+        on_pool!(self, |pool| {
+            let rows: Vec<TrendRow> = sqlx::query_as(concat!(
+                "SELECT e.id AS evaluation, e.created_at, e.project, e.dataset_id,",
+                " d.name AS dataset_name, e.verdict, m.name AS model, c.agreement, c.p90_ms,",
+                tag_column!("commit"),
+                " FROM evaluations e",
+                " JOIN candidates c ON c.evaluation_id = e.id AND c.rank = 1",
+                " JOIN models m ON m.id = c.model_id",
+                " LEFT JOIN datasets d ON d.id = e.dataset_id",
+                " WHERE e.teacher_id = $1 AND e.status = 'succeeded'",
+                " ORDER BY e.project, d.name, e.dataset_id, e.id"
+            ))
+            .bind(teacher)
+            .fetch_all(pool)
+            .await?;
+            rows.into_iter().map(TrendPoint::try_from).collect()
+        })
     }
 
     /// Projects and teachers that have evaluations, for the filter menus:
     /// the `MENU_LIMIT` most recently evaluated of each, by name, so that a
     /// service with thousands of projects still sends a small page.
     pub async fn filter_choices(&self) -> Result<(Vec<String>, Vec<(Uuid, String)>), StoreError> {
-        let projects: Vec<(String,)> = sqlx::query_as(
-            "SELECT project FROM (SELECT project, MAX(id) AS last FROM evaluations \
-             GROUP BY project ORDER BY last DESC LIMIT ?) ORDER BY project",
-        )
-        .bind(MENU_LIMIT)
-        .fetch_all(&self.pool)
-        .await?;
-        let teachers: Vec<(Uuid, String)> = sqlx::query_as(
-            "SELECT m.id, m.name FROM models m JOIN (SELECT teacher_id, MAX(id) AS last \
-             FROM evaluations GROUP BY teacher_id ORDER BY last DESC LIMIT ?) t \
+        on_pool!(self, |pool| {
+            let projects: Vec<(String,)> = sqlx::query_as(
+                "SELECT project FROM (SELECT project, MAX(created_at) AS last FROM evaluations \
+             GROUP BY project ORDER BY last DESC LIMIT $1) AS recent ORDER BY project",
+            )
+            .bind(MENU_LIMIT)
+            .fetch_all(pool)
+            .await?;
+            let teachers: Vec<(Uuid, String)> = sqlx::query_as(
+            "SELECT m.id, m.name FROM models m JOIN (SELECT teacher_id, MAX(created_at) AS last \
+             FROM evaluations GROUP BY teacher_id ORDER BY last DESC LIMIT $1) t \
              ON m.id = t.teacher_id ORDER BY m.name, m.id",
         )
         .bind(MENU_LIMIT)
-        .fetch_all(&self.pool)
+        .fetch_all(pool)
         .await?;
-        Ok((projects.into_iter().map(|(p,)| p).collect(), teachers))
+            Ok((projects.into_iter().map(|(p,)| p).collect(), teachers))
+        })
     }
 }

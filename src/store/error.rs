@@ -1,4 +1,5 @@
-//! The store's error type: the database, the blob files, or a stored value
+//! The store's error type: the database, the blob files (on disk or in
+//! object storage), or a stored value
 //! that no longer parses. None of these is the user's fault, so the HTTP
 //! layer answers every one with a generic 500 and logs the cause.
 
@@ -10,6 +11,11 @@ pub enum StoreError {
     Migrate(#[from] sqlx::migrate::MigrateError),
     #[error("blob files: {0}")]
     Io(#[from] std::io::Error),
+    #[error("object storage: {0}")]
+    Objects(#[from] object_store::Error),
+    /// A `--blob-store` that names no folder or bucket we can use.
+    #[error("blob store: {0}")]
+    Config(String),
     /// The thread that writes an upload's blob panicked or was cancelled.
     #[error("the blob writer stopped: {0}")]
     Writer(#[from] tokio::task::JoinError),

@@ -23,7 +23,7 @@ impl Store {
                 .await?
                 .ok_or_else(|| missing(format!("model {id}")))?;
             Ok::<_, StoreError>(ModelRef {
-                path: self.blobs.path_of(BlobKind::Model, &m.sha256),
+                path: self.blobs.fetch(BlobKind::Model, &m.sha256).await?,
                 id: m.id,
                 name: m.name,
                 sha256: m.sha256,
@@ -51,13 +51,14 @@ impl Store {
             baseline,
             students,
             dataset: DatasetRef {
-                path: self.blobs.path_of(BlobKind::Dataset, &d.sha256),
+                path: self.blobs.fetch(BlobKind::Dataset, &d.sha256).await?,
                 id: d.id,
                 name: d.name,
                 sha256: d.sha256,
             },
             settings: request.settings.clone(),
             claimed_at: None,
+            worker: None,
         })
     }
 

@@ -89,41 +89,45 @@ impl Store {
         limit: u32,
         after: Option<&str>,
     ) -> Result<Page<ProjectSummary>, StoreError> {
-        let names: Vec<(String,)> = sqlx::query_as(
-            "SELECT name FROM (SELECT project AS name FROM evaluations \
-             UNION SELECT project AS name FROM baselines) \
-             WHERE (?1 IS NULL OR name > ?1) ORDER BY name LIMIT ?2",
-        )
-        .bind(after)
-        .bind(limit as i64 + 1)
-        .fetch_all(&self.pool)
-        .await?;
-        let mut items = Vec::with_capacity(names.len());
-        for (name,) in names {
-            items.push(self.project_summary(&name).await?);
-        }
-        let more = items.len() > limit as usize;
-        items.truncate(limit as usize);
-        let next_cursor = more.then(|| items.last().map(|p| p.name.clone())).flatten();
-        Ok(Page { items, next_cursor })
+        on_pool!(self, |pool| {
+            let names: Vec<(String,)> = sqlx::query_as(
+                "SELECT name FROM (SELECT project AS name FROM evaluations \
+             UNION SELECT project AS name FROM baselines) AS names \
+             WHERE ($1 IS NULL OR name > $1) ORDER BY name LIMIT $2",
+            )
+            .bind(after)
+            .bind(limit as i64 + 1)
+            .fetch_all(pool)
+            .await?;
+            let mut items = Vec::with_capacity(names.len());
+            for (name,) in names {
+                items.push(self.project_summary(&name).await?);
+            }
+            let more = items.len() > limit as usize;
+            items.truncate(limit as usize);
+            let next_cursor = more.then(|| items.last().map(|p| p.name.clone())).flatten();
+            Ok(Page { items, next_cursor })
+        })
     }
 
     async fn project_summary(&self, name: &str) -> Result<ProjectSummary, StoreError> {
-        let counts: CountRow = sqlx::query_as(
-            // The newest by id (UUID v7), not MAX over RFC 3339 text, whose
-            // fractional digits vary in length.
-            "SELECT COUNT(*) AS evaluations, (SELECT created_at FROM evaluations \
-             WHERE project = ?1 ORDER BY id DESC LIMIT 1) AS last_evaluation_at \
-             FROM evaluations WHERE project = ?1",
-        )
-        .bind(name)
-        .fetch_one(&self.pool)
-        .await?;
-        Ok(ProjectSummary {
-            name: name.to_string(),
-            evaluations: counts.evaluations as u64,
-            last_evaluation_at: counts.last_evaluation_at,
-            baseline: self.current_baseline(name).await?,
+        on_pool!(self, |pool| {
+            let counts: CountRow = sqlx::query_as(
+                // The newest by id (UUID v7), not MAX over RFC 3339 text, whose
+                // fractional digits vary in length.
+                "SELECT COUNT(*) AS evaluations, (SELECT created_at FROM evaluations \
+             WHERE project = $1 ORDER BY id DESC LIMIT 1) AS last_evaluation_at \
+             FROM evaluations WHERE project = $1",
+            )
+            .bind(name)
+            .fetch_one(pool)
+            .await?;
+            Ok(ProjectSummary {
+                name: name.to_string(),
+                evaluations: counts.evaluations as u64,
+                last_evaluation_at: counts.last_evaluation_at,
+                baseline: self.current_baseline(name).await?,
+            })
         })
     }
 
@@ -143,47 +147,53 @@ impl Store {
 
     /// Every baseline of a project, newest first.
     pub async fn baseline_history(&self, project: &str) -> Result<Vec<BaselineRecord>, StoreError> {
-        let rows: Vec<BaselineRow> = sqlx::query_as(
-            "SELECT b.model_id, m.name, m.sha256, b.set_at, b.set_by, b.evaluation_id \
+        on_pool!(self, |pool| {
+            let rows: Vec<BaselineRow> = sqlx::query_as(
+                "SELECT b.model_id, m.name, m.sha256, b.set_at, b.set_by, b.evaluation_id \
              FROM baselines b JOIN models m ON m.id = b.model_id \
-             WHERE b.project = ?1 ORDER BY b.position DESC",
-        )
-        .bind(project)
-        .fetch_all(&self.pool)
-        .await?;
-        Ok(rows.into_iter().map(BaselineRecord::from).collect())
+             WHERE b.project = $1 ORDER BY b.position DESC",
+            )
+            .bind(project)
+            .fetch_all(pool)
+            .await?;
+            Ok(rows.into_iter().map(BaselineRecord::from).collect())
+        })
     }
 
     pub async fn current_baseline(
         &self,
         project: &str,
     ) -> Result<Option<BaselineRecord>, StoreError> {
-        let row: Option<BaselineRow> = sqlx::query_as(
-            "SELECT b.model_id, m.name, m.sha256, b.set_at, b.set_by, b.evaluation_id \
+        on_pool!(self, |pool| {
+            let row: Option<BaselineRow> = sqlx::query_as(
+                "SELECT b.model_id, m.name, m.sha256, b.set_at, b.set_by, b.evaluation_id \
              FROM baselines b JOIN models m ON m.id = b.model_id \
-             WHERE b.project = ?1 ORDER BY b.position DESC LIMIT 1",
-        )
-        .bind(project)
-        .fetch_optional(&self.pool)
-        .await?;
-        Ok(row.map(BaselineRecord::from))
+             WHERE b.project = $1 ORDER BY b.position DESC LIMIT 1",
+            )
+            .bind(project)
+            .fetch_optional(pool)
+            .await?;
+            Ok(row.map(BaselineRecord::from))
+        })
     }
 
     /// Appends a baseline to its project's history, making it current.
     pub async fn set_baseline(&self, b: &NewBaseline) -> Result<(), StoreError> {
-        sqlx::query(
+        on_pool!(self, |pool| {
+            sqlx::query(
             "INSERT INTO baselines (project, position, model_id, set_at, set_by, evaluation_id) \
-             VALUES (?1, (SELECT COALESCE(MAX(position), 0) + 1 FROM baselines WHERE project = ?1), \
-             ?2, ?3, ?4, ?5)",
+             VALUES ($1, (SELECT COALESCE(MAX(position), 0) + 1 FROM baselines WHERE project = $1), \
+             $2, $3, $4, $5)",
         )
         .bind(&b.project)
         .bind(b.model)
         .bind(b.set_at)
         .bind(&b.set_by)
         .bind(b.evaluation)
-        .execute(&self.pool)
+        .execute(pool)
         .await?;
-        Ok(())
+            Ok(())
+        })
     }
 
     /// Whether `model` was a candidate of `evaluation` that passed every gate.
@@ -192,14 +202,16 @@ impl Store {
         evaluation: Uuid,
         model: Uuid,
     ) -> Result<bool, StoreError> {
-        let row: Option<(bool,)> = sqlx::query_as(
-            "SELECT passed FROM candidates WHERE evaluation_id = ?1 AND model_id = ?2 \
+        on_pool!(self, |pool| {
+            let row: Option<(bool,)> = sqlx::query_as(
+                "SELECT passed FROM candidates WHERE evaluation_id = $1 AND model_id = $2 \
              ORDER BY passed DESC LIMIT 1",
-        )
-        .bind(evaluation)
-        .bind(model)
-        .fetch_optional(&self.pool)
-        .await?;
-        Ok(row.is_some_and(|(p,)| p))
+            )
+            .bind(evaluation)
+            .bind(model)
+            .fetch_optional(pool)
+            .await?;
+            Ok(row.is_some_and(|(p,)| p))
+        })
     }
 }

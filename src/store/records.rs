@@ -61,9 +61,9 @@ impl DatasetRecord {
     }
 }
 
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, sqlx::Type)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "lowercase")]
-#[sqlx(type_name = "TEXT", rename_all = "lowercase")]
+
 pub enum Status {
     Queued,
     Running,
@@ -105,6 +105,9 @@ pub struct Progress {
     pub stage: Stage,
     pub done: u64,
     pub total: u64,
+    /// While queued: the `runs_on` labels that no live worker carries.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub waiting_for: Option<crate::labels::Labels>,
 }
 
 /// An evaluation's request as applied: the ids it names, defaults filled in.
@@ -150,8 +153,7 @@ pub struct EvaluationRecord {
     pub created_by: Option<String>,
     /// The token that canceled it, if one did.
     pub canceled_by: Option<String>,
-    /// The worker that runs or ran it; null while workers run inside the
-    /// service process.
+    /// The worker that runs or ran it (the last to claim it).
     pub worker: Option<Uuid>,
 }
 

@@ -95,6 +95,7 @@ pub(super) struct EvaluationRow {
     recommended_id: Option<Uuid>,
     created_by: Option<String>,
     canceled_by: Option<String>,
+    worker_id: Option<Uuid>,
 }
 
 /// A stage as stored; NULL is an evaluation no worker has started.
@@ -123,6 +124,7 @@ impl TryFrom<EvaluationRow> for EvaluationRecord {
                 stage: stage(r.progress_stage.as_deref())?,
                 done: r.progress_done as u64,
                 total: r.progress_total as u64,
+                waiting_for: None,
             },
             error: r.error.map(|e| e.0),
             request: r.request.0,
@@ -137,7 +139,7 @@ impl TryFrom<EvaluationRow> for EvaluationRecord {
             attempts: r.attempts as u32,
             created_by: r.created_by,
             canceled_by: r.canceled_by,
-            worker: None,
+            worker: r.worker_id,
         })
     }
 }

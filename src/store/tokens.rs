@@ -10,11 +10,9 @@ use uuid::Uuid;
 use super::{Store, StoreError};
 
 /// What a token may do, each role including the ones before it (api.md, "Access").
-#[derive(
-    Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Serialize, Deserialize, sqlx::Type,
-)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Serialize, Deserialize)]
 #[serde(rename_all = "lowercase")]
-#[sqlx(type_name = "TEXT", rename_all = "lowercase")]
+
 pub enum Role {
     /// Every read.
     Reader,
@@ -66,50 +64,59 @@ pub fn secret_hash(secret: &str) -> String {
 impl Store {
     /// Stores a new token under the hash of `secret`; `false` when the name is taken.
     pub async fn insert_token(&self, t: &TokenRecord, secret: &str) -> Result<bool, StoreError> {
-        let done = sqlx::query(
-            "INSERT INTO tokens (id, name, role, project, secret_sha256, created_at) \
-             VALUES (?1, ?2, ?3, ?4, ?5, ?6) ON CONFLICT (name) DO NOTHING",
-        )
-        .bind(t.id)
-        .bind(&t.name)
-        .bind(t.role)
-        .bind(&t.project)
-        .bind(secret_hash(secret))
-        .bind(t.created_at)
-        .execute(&self.pool)
-        .await?
-        .rows_affected();
-        Ok(done == 1)
+        on_pool!(self, |pool| {
+            let done = sqlx::query(
+                "INSERT INTO tokens (id, name, role, project, secret_sha256, created_at) \
+             VALUES ($1, $2, $3, $4, $5, $6) ON CONFLICT (name) DO NOTHING",
+            )
+            .bind(t.id)
+            .bind(&t.name)
+            .bind(t.role)
+            .bind(&t.project)
+            .bind(secret_hash(secret))
+            .bind(t.created_at)
+            .execute(pool)
+            .await?
+            .rows_affected();
+            Ok(done == 1)
+        })
     }
 
     /// The live token whose secret this is.
     pub async fn token_for_secret(&self, secret: &str) -> Result<Option<TokenRecord>, StoreError> {
-        Ok(sqlx::query_as(
-            "SELECT id, name, role, project, created_at, revoked_at FROM tokens \
-             WHERE secret_sha256 = ?1 AND revoked_at IS NULL",
-        )
-        .bind(secret_hash(secret))
-        .fetch_optional(&self.pool)
-        .await?)
+        on_pool!(self, |pool| {
+            Ok(sqlx::query_as(
+                "SELECT id, name, role, project, created_at, revoked_at FROM tokens \
+             WHERE secret_sha256 = $1 AND revoked_at IS NULL",
+            )
+            .bind(secret_hash(secret))
+            .fetch_optional(pool)
+            .await?)
+        })
     }
 
     pub async fn list_tokens(&self) -> Result<Vec<TokenRecord>, StoreError> {
-        Ok(sqlx::query_as(
-            "SELECT id, name, role, project, created_at, revoked_at FROM tokens ORDER BY name",
-        )
-        .fetch_all(&self.pool)
-        .await?)
+        on_pool!(self, |pool| {
+            Ok(sqlx::query_as(
+                "SELECT id, name, role, project, created_at, revoked_at FROM tokens ORDER BY name",
+            )
+            .fetch_all(pool)
+            .await?)
+        })
     }
 
     /// Revokes the live token of this name; `false` when there is none.
     pub async fn revoke_token(&self, name: &str) -> Result<bool, StoreError> {
-        let done =
-            sqlx::query("UPDATE tokens SET revoked_at = ?1 WHERE name = ?2 AND revoked_at IS NULL")
-                .bind(OffsetDateTime::now_utc())
-                .bind(name)
-                .execute(&self.pool)
-                .await?
-                .rows_affected();
-        Ok(done == 1)
+        on_pool!(self, |pool| {
+            let done = sqlx::query(
+                "UPDATE tokens SET revoked_at = $1 WHERE name = $2 AND revoked_at IS NULL",
+            )
+            .bind(OffsetDateTime::now_utc())
+            .bind(name)
+            .execute(pool)
+            .await?
+            .rows_affected();
+            Ok(done == 1)
+        })
     }
 }

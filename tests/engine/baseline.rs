@@ -76,6 +76,7 @@ fn job(set: &str) -> Job {
         dataset: dataset(set),
         settings,
         claimed_at: None,
+        worker: None,
     }
 }
 

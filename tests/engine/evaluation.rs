@@ -49,6 +49,7 @@ fn job(case: &str, students: &[&str], settings: Settings) -> Job {
         dataset: dataset_ref(&case_dir(case).join("data.npz")),
         settings,
         claimed_at: None,
+        worker: None,
     }
 }
 

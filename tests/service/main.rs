@@ -16,12 +16,20 @@ mod limits;
 mod load;
 #[path = "../support/mutate.rs"]
 mod mutate;
+#[path = "../support/objects.rs"]
+mod objects;
 mod openapi;
+#[path = "../support/postgres.rs"]
+mod postgres;
+mod postgresql;
 mod projects;
 mod resilience;
 mod sandbox;
+mod scaleout;
 mod stalls;
 mod storage;
 mod tls;
 mod upgrade;
 mod uploads;
+#[path = "../support/worker.rs"]
+mod worker;

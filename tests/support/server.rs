@@ -17,6 +17,8 @@ pub struct Server {
     /// Who requests go out as, and which certificate they trust.
     token: Option<String>,
     ca_pem: Option<Vec<u8>>,
+    /// `--database-url` and `--blob-store` as given, for `proctor token`.
+    data_flags: Vec<String>,
 }
 
 /// The variable and file of the service's test-only hold (src/sandbox/hold.rs).
@@ -72,7 +74,23 @@ impl Server {
         Server::launch_on(data_dir, "127.0.0.1:0", extra, hold_at)
     }
 
+    /// Starts a server on an existing data dir with more variables in its
+    /// environment (object storage's credentials, say).
+    pub fn start_with_env(data_dir: &Path, extra: &[&str], env: &[(String, String)]) -> Server {
+        Server::launch_with(data_dir, "127.0.0.1:0", extra, None, env)
+    }
+
     fn launch_on(data_dir: &Path, listen: &str, extra: &[&str], hold_at: Option<&str>) -> Server {
+        Server::launch_with(data_dir, listen, extra, hold_at, &[])
+    }
+
+    fn launch_with(
+        data_dir: &Path,
+        listen: &str,
+        extra: &[&str],
+        hold_at: Option<&str>,
+        env: &[(String, String)],
+    ) -> Server {
         let log = std::fs::OpenOptions::new()
             .create(true)
             .append(true)
@@ -84,6 +102,10 @@ impl Server {
             .arg(data_dir)
             .args(extra)
             .env_remove(HOLD_AT)
+            // Each test's server times alone on its own lock: tests run side
+            // by side, and one held mid-timing must not stall the others.
+            .env("PROCTOR_CPU_LOCK", data_dir.join("cpu.lock"))
+            .envs(env.iter().map(|(k, v)| (k, v)))
             .stdout(Stdio::piped())
             .stderr(log);
         if let Some(stage) = hold_at {
@@ -103,6 +125,11 @@ impl Server {
                 )
             })
             .to_string();
+        let data_flags = extra
+            .windows(2)
+            .filter(|w| matches!(w[0], "--database-url" | "--blob-store"))
+            .flat_map(|w| [w[0].to_string(), w[1].to_string()])
+            .collect();
         Server {
             child: Some(child),
             base,
@@ -111,6 +138,7 @@ impl Server {
             client: reqwest::Client::new(),
             token: None,
             ca_pem: None,
+            data_flags,
         }
     }
 
@@ -129,6 +157,7 @@ impl Server {
             ])
             .arg("--data-dir")
             .arg(&self.data_dir)
+            .args(&self.data_flags)
             .output()
             .unwrap();
         assert!(
@@ -146,6 +175,7 @@ impl Server {
             .args(args)
             .arg("--data-dir")
             .arg(&self.data_dir)
+            .args(&self.data_flags)
             .output()
             .unwrap()
     }

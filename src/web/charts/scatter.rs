@@ -73,9 +73,18 @@ pub(in crate::web) fn scatter(s: &Scatter<'_>) -> Markup {
         .collect();
     let unit = TimeUnit::for_ms(all_ms.iter().copied().fold(0.0, f64::max));
     let xs: Vec<f64> = all_ms.iter().map(|v| v * unit.per_ms).collect();
+    // The minimum span is taken around the medians' centre, not the
+    // intervals': a wide interval on one side must not shrink it.
+    let medians: Vec<f64> = s
+        .points
+        .iter()
+        .map(|p| p.p50_ms)
+        .chain(s.references.iter().map(|r| r.p50_ms))
+        .map(|v| v * unit.per_ms)
+        .collect();
     let x = Scale::new(
         xs.iter().copied(),
-        Fit::relative(&xs, MIN_RELATIVE_SPAN),
+        Fit::relative(&medians, MIN_RELATIVE_SPAN),
         PLOT.left,
         PLOT.right,
     );
