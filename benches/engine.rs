@@ -96,6 +96,7 @@ fn bench_peak_rss() {
             ..Settings::default()
         },
         claimed_at: None,
+        worker: None,
     };
     let started = Instant::now();
     let out = evaluate(

@@ -65,7 +65,7 @@ pub struct RunArgs {
     pub labels: Labels,
     /// Seconds a claimed evaluation stays claimed without its worker
     /// renewing the claim; after that another worker runs it.
-    #[arg(long, env = "PROCTOR_LEASE_SECONDS", default_value_t = 30.0)]
+    #[arg(long, env = "PROCTOR_LEASE_SECONDS", default_value_t = 30.0, value_parser = parse_lease)]
     pub lease_seconds: f64,
     /// Wall-time limit per evaluation (and per upload check), in seconds.
     #[arg(long, env = "PROCTOR_EVAL_TIMEOUT", default_value_t = 3600)]
@@ -87,6 +87,13 @@ fn parse_labels(text: &str) -> Result<Labels, String> {
     crate::labels::parse(text)
 }
 
+fn parse_lease(text: &str) -> Result<f64, String> {
+    match text.parse::<f64>() {
+        Ok(s) if (0.5..=86_400.0).contains(&s) => Ok(s),
+        _ => Err("a lease is 0.5 to 86400 seconds".into()),
+    }
+}
+
 impl RunArgs {
     pub fn eval_timeout(&self) -> Duration {
         Duration::from_secs(self.eval_timeout)
@@ -97,7 +104,7 @@ impl RunArgs {
     }
 
     pub fn lease(&self) -> Duration {
-        Duration::from_secs_f64(self.lease_seconds.clamp(0.5, 86_400.0))
+        Duration::from_secs_f64(self.lease_seconds)
     }
 
     pub fn cpu_lock(&self) -> PathBuf {

@@ -2,11 +2,12 @@
 -- with PostgreSQL's own types: UUID ids (which sort as UUID v7 sort: by
 -- time), TIMESTAMPTZ times, JSONB for JSON read back into types. A report
 -- body is TEXT: it is served byte for byte as the engine wrote it, and JSONB
--- would reorder its keys.
+-- would reorder its keys. Names sort bytewise ("C"), as SQLite sorts them,
+-- whatever the cluster's locale.
 
 CREATE TABLE models (
     id          UUID PRIMARY KEY,
-    name        TEXT NOT NULL,
+    name        TEXT COLLATE "C" NOT NULL,
     sha256      TEXT NOT NULL UNIQUE,
     bytes       BIGINT NOT NULL,
     info        JSONB NOT NULL,
@@ -16,7 +17,7 @@ CREATE TABLE models (
 
 CREATE TABLE datasets (
     id             UUID PRIMARY KEY,
-    name           TEXT NOT NULL,
+    name           TEXT COLLATE "C" NOT NULL,
     sha256         TEXT NOT NULL UNIQUE,
     bytes          BIGINT NOT NULL,
     samples        BIGINT NOT NULL,
@@ -31,7 +32,7 @@ CREATE TABLE datasets (
 
 CREATE TABLE evaluations (
     id                UUID PRIMARY KEY,
-    project           TEXT NOT NULL,
+    project           TEXT COLLATE "C" NOT NULL,
     teacher_id        UUID NOT NULL REFERENCES models(id),
     dataset_id        UUID NOT NULL REFERENCES datasets(id),
     status            TEXT NOT NULL CHECK (status IN ('queued', 'running', 'succeeded', 'failed', 'canceled')),
@@ -64,7 +65,7 @@ CREATE TABLE evaluation_students (
 
 CREATE TABLE evaluation_tags (
     evaluation_id  UUID NOT NULL REFERENCES evaluations(id) ON DELETE CASCADE,
-    key            TEXT NOT NULL,
+    key            TEXT COLLATE "C" NOT NULL,
     value          TEXT NOT NULL,
     PRIMARY KEY (evaluation_id, key)
 );
@@ -104,7 +105,7 @@ CREATE TABLE timings (
 );
 
 CREATE TABLE baselines (
-    project        TEXT NOT NULL,
+    project        TEXT COLLATE "C" NOT NULL,
     position       BIGINT NOT NULL,
     model_id       UUID NOT NULL REFERENCES models(id),
     set_at         TIMESTAMPTZ NOT NULL,
@@ -115,9 +116,9 @@ CREATE TABLE baselines (
 
 CREATE TABLE tokens (
     id             UUID PRIMARY KEY,
-    name           TEXT NOT NULL UNIQUE,
+    name           TEXT COLLATE "C" NOT NULL UNIQUE,
     role           TEXT NOT NULL CHECK (role IN ('reader', 'submitter', 'maintainer', 'admin')),
-    project        TEXT NOT NULL,
+    project        TEXT COLLATE "C" NOT NULL,
     secret_sha256  TEXT NOT NULL UNIQUE,
     created_at     TIMESTAMPTZ NOT NULL,
     revoked_at     TIMESTAMPTZ
@@ -131,6 +132,7 @@ CREATE TABLE workers (
     started_at     TIMESTAMPTZ NOT NULL,
     heartbeat_ms   BIGINT NOT NULL,
     pid            BIGINT NOT NULL,
+    host_key       TEXT NOT NULL,
     evaluation_id  UUID
 );
 

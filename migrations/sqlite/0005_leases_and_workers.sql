@@ -19,7 +19,8 @@ CREATE TABLE workers (
     labels         TEXT NOT NULL,       -- JSON object of strings
     started_at     TEXT NOT NULL,
     heartbeat_ms   INTEGER NOT NULL,    -- Unix ms, which compare exactly
-    pid            INTEGER NOT NULL,    -- its process on `hostname`: one that is gone holds no lease
+    pid            INTEGER NOT NULL,    -- its process, valid on `host_key`
+    host_key       TEXT NOT NULL,       -- boot id and pid namespace: a process that is gone there holds no lease
     evaluation_id  BLOB                 -- what it runs now; not a foreign key: evaluations may be deleted
 );
 

@@ -19,7 +19,9 @@ use crate::error::AppError;
 use crate::labels::Labels;
 use crate::problem::Problem;
 use crate::sandbox::{Sandbox, SandboxError};
-use crate::store::{EvaluationRecord, Lease, Progress, Status, Store, StoreError, WorkerRecord};
+use crate::store::{
+    EvaluationRecord, Lease, Process, Progress, Status, Store, StoreError, WorkerRecord,
+};
 use crate::telemetry::Telemetry;
 
 /// How this process's workers take work.
@@ -63,15 +65,24 @@ struct Inner {
 struct Host {
     hostname: String,
     cpu: String,
-    pid: u32,
+    process: Process,
 }
 
 impl Host {
     fn this_one() -> Host {
+        let read = |path: &str| {
+            std::fs::read_to_string(path)
+                .map_or_else(|_| "unknown".into(), |t| t.trim().to_string())
+        };
+        let namespace = std::fs::read_link("/proc/self/ns/pid")
+            .map_or_else(|_| "unknown".into(), |p| p.display().to_string());
         Host {
             hostname: hostname(),
             cpu: crate::engine::environment::cpu_model(),
-            pid: std::process::id(),
+            process: Process {
+                host_key: format!("{} {namespace}", read("/proc/sys/kernel/random/boot_id")),
+                pid: std::process::id(),
+            },
         }
     }
 }
@@ -85,10 +96,15 @@ fn hostname() -> String {
 }
 
 /// Whether no process has this id here (signal 0 checks without sending).
+/// Our own id is gone too: this process registers its workers only after
+/// looking, so a row with its id is an earlier process's.
 fn process_gone(pid: u32) -> bool {
     let Ok(pid) = i32::try_from(pid) else {
         return true;
     };
+    if pid as u32 == std::process::id() {
+        return true;
+    }
     // SAFETY: kill with signal 0 only checks that the process exists.
     let r = unsafe { libc::kill(pid, 0) };
     r != 0 && std::io::Error::last_os_error().raw_os_error() == Some(libc::ESRCH)
@@ -130,7 +146,7 @@ impl Workers {
         let host = Host::this_one();
         if setup.slots > 0 {
             store
-                .end_leases_of_gone_workers(&host.hostname, process_gone)
+                .end_leases_of_gone_workers(&host.process.host_key, process_gone)
                 .await?;
             let (requeued, failed) = store.reclaim_lapsed(OffsetDateTime::now_utc()).await?;
             if requeued + failed > 0 {
@@ -153,9 +169,31 @@ impl Workers {
             handles: Mutex::new(Vec::new()),
             setup,
         });
-        let handles = (0..inner.setup.slots)
-            .map(|_| tokio::spawn(worker(inner.clone())))
-            .collect();
+        // Registered before they start, so that a caller who sees this
+        // return sees the workers listed.
+        let mut handles = Vec::with_capacity(inner.setup.slots);
+        for _ in 0..inner.setup.slots {
+            let now = OffsetDateTime::now_utc();
+            let lease = Lease {
+                worker: Uuid::now_v7(),
+                labels: inner.setup.labels.clone(),
+                term: inner.setup.lease,
+            };
+            let me = WorkerRecord {
+                id: lease.worker,
+                hostname: inner.host.hostname.clone(),
+                cpu: inner.host.cpu.clone(),
+                labels: lease.labels.clone(),
+                started_at: now,
+                heartbeat_at: now,
+                evaluation: None,
+            };
+            inner
+                .store
+                .register_worker(&me, &inner.host.process)
+                .await?;
+            handles.push(tokio::spawn(worker(inner.clone(), lease)));
+        }
         *inner.handles.lock().unwrap_or_else(|p| p.into_inner()) = handles;
         Ok(Workers { inner })
     }
@@ -178,11 +216,6 @@ impl Workers {
         self.inner.alive.load(Ordering::Relaxed)
     }
 
-    /// How long after its last heartbeat a worker no longer counts as live.
-    pub fn silent_after(&self) -> Duration {
-        self.inner.setup.lease
-    }
-
     /// Stops the workers: running evaluations are put back in the queue.
     pub async fn shutdown(&self) {
         self.inner.shutdown.cancel();
@@ -202,31 +235,8 @@ impl Inner {
     }
 }
 
-async fn worker(inner: Arc<Inner>) {
+async fn worker(inner: Arc<Inner>, lease: Lease) {
     let _alive = Alive::count(&inner.alive);
-    let now = OffsetDateTime::now_utc();
-    let lease = Lease {
-        worker: Uuid::now_v7(),
-        labels: inner.setup.labels.clone(),
-        term: inner.setup.lease,
-    };
-    let me = WorkerRecord {
-        id: lease.worker,
-        hostname: inner.host.hostname.clone(),
-        cpu: inner.host.cpu.clone(),
-        labels: lease.labels.clone(),
-        started_at: now,
-        heartbeat_at: now,
-        evaluation: None,
-        pid: inner.host.pid,
-    };
-    while let Err(e) = inner.store.register_worker(&me).await {
-        tracing::error!(error = %e, "registering the worker failed");
-        tokio::select! {
-            _ = tokio::time::sleep(Duration::from_secs(1)) => {}
-            _ = inner.shutdown.cancelled() => return,
-        }
-    }
     let mut last_beat = std::time::Instant::now();
     while !inner.shutdown.is_cancelled() {
         if last_beat.elapsed() >= inner.setup.beat() {
@@ -260,11 +270,10 @@ async fn worker(inner: Arc<Inner>) {
 /// An idle worker's beat: it is alive, and claims that lapsed anywhere go
 /// back to the queue.
 async fn idle_beat(inner: &Inner, lease: &Lease) {
-    let now = OffsetDateTime::now_utc();
-    if let Err(e) = inner.store.worker_heartbeat(lease.worker, now, None).await {
+    if let Err(e) = inner.store.worker_heartbeat(lease.worker, None).await {
         tracing::warn!(error = %e, "the worker's heartbeat failed");
     }
-    match inner.store.reclaim_lapsed(now).await {
+    match inner.store.reclaim_lapsed(OffsetDateTime::now_utc()).await {
         Ok((requeued, failed)) if requeued + failed > 0 => {
             tracing::info!(requeued, failed, "took back evaluations whose lease lapsed");
         }
@@ -273,25 +282,40 @@ async fn idle_beat(inner: &Inner, lease: &Lease) {
     }
 }
 
-/// Renews the lease while the evaluation runs; stops the run once the
-/// lease is no longer this worker's (canceled elsewhere, or lapsed).
-async fn keep_lease(store: Store, lease: Lease, id: Uuid, beat: Duration, run: CancellationToken) {
+/// Renews the lease until the run has ended (`done`, which comes after
+/// a shutdown's requeue, so the claim holds until it is given back); stops
+/// the run once the lease is no longer this worker's (canceled elsewhere,
+/// or lapsed), or when renewals have failed for a whole term, after which
+/// another worker may hold it.
+async fn keep_lease(
+    store: Store,
+    lease: Lease,
+    id: Uuid,
+    beat: Duration,
+    run: CancellationToken,
+    done: CancellationToken,
+) {
+    let mut renewed = std::time::Instant::now();
     loop {
         tokio::select! {
             _ = tokio::time::sleep(beat) => {}
-            _ = run.cancelled() => return,
+            _ = done.cancelled() => return,
         }
         match store.renew(id, &lease).await {
-            Ok(true) => {}
+            Ok(true) => renewed = std::time::Instant::now(),
             Ok(false) => {
                 tracing::info!("the lease is no longer ours (canceled, or it lapsed): stopping");
                 run.cancel();
                 return;
             }
+            Err(e) if renewed.elapsed() >= lease.term => {
+                tracing::error!(error = %e, "the lease could not be renewed for its whole term: stopping");
+                run.cancel();
+                return;
+            }
             Err(e) => tracing::warn!(error = %e, "renewing the lease failed"),
         }
-        let now = OffsetDateTime::now_utc();
-        if let Err(e) = store.worker_heartbeat(lease.worker, now, Some(id)).await {
+        if let Err(e) = store.worker_heartbeat(lease.worker, Some(id)).await {
             tracing::warn!(error = %e, "the worker's heartbeat failed");
         }
     }
@@ -301,28 +325,26 @@ async fn run_one(inner: &Arc<Inner>, lease: &Lease, record: EvaluationRecord) {
     let id = record.id;
     let span = tracing::info_span!("evaluation", %id, attempt = record.attempts);
     tracing::info!(%id, attempt = record.attempts, "claimed");
-    if let Err(e) = inner
-        .store
-        .worker_heartbeat(lease.worker, OffsetDateTime::now_utc(), Some(id))
-        .await
-    {
+    if let Err(e) = inner.store.worker_heartbeat(lease.worker, Some(id)).await {
         tracing::warn!(error = %e, "the worker's heartbeat failed");
     }
     let token = inner.shutdown.child_token();
     inner.running().insert(id, token.clone());
     // The lease is kept from the claim on, through the test hold too.
+    let done = CancellationToken::new();
     let keeper = tokio::spawn(keep_lease(
         inner.store.clone(),
         lease.clone(),
         id,
         inner.setup.beat(),
         token.clone(),
+        done.clone(),
     ));
     inner.sandbox.hold_before_start().await;
     let outcome = execute(inner, lease, &record, &token)
         .instrument(span)
         .await;
-    keeper.abort();
+    done.cancel();
     let _ = keeper.await;
     inner.running().remove(&id);
     if let Err(e) = outcome {
@@ -359,10 +381,18 @@ async fn execute(
             }),
             ..job
         },
-        Err(e) => {
+        // A record that names what is not stored will not heal; object
+        // storage or the database out of reach may: the evaluation goes
+        // back with its attempt counted.
+        Err(e @ StoreError::Corrupt(_)) => {
             tracing::error!(error = %e, "preparing the evaluation failed");
             let p = AppError::from(e).problem();
             store.finish_failed(id, owner, &p).await?;
+            return Ok(());
+        }
+        Err(e) => {
+            tracing::error!(error = %e, "preparing the evaluation failed; it goes back to the queue");
+            store.requeue(id, owner, false).await?;
             return Ok(());
         }
     };
@@ -410,7 +440,7 @@ async fn execute(
         }
         Err(SandboxError::Canceled) if inner.shutdown.is_cancelled() => {
             tracing::info!("shutting down: the evaluation goes back to the queue");
-            store.requeue(id, owner).await?;
+            store.requeue(id, owner, true).await?;
         }
         Err(SandboxError::Canceled) => {
             inner.telemetry.evaluation("canceled", seconds, None);

@@ -49,7 +49,7 @@ impl App {
         }
         if let Err(e) = self
             .store
-            .forget_workers_before(now - super::workers::LISTED_FOR)
+            .forget_workers_silent_for(super::workers::LISTED_FOR)
             .await
         {
             tracing::warn!(error = %e, "forgetting silent workers failed");

@@ -75,6 +75,13 @@ pub fn tags(tags: &BTreeMap<String, String>) -> Result<(), AppError> {
                 ),
             ));
         }
+        // NUL is text on SQLite but not on PostgreSQL: refused on both alike.
+        if value.contains('\0') {
+            return Err(refuse(
+                &format!("tags.{key}"),
+                "a tag value holds no NUL character".into(),
+            ));
+        }
         if value.chars().count() > MAX_TAG_VALUE {
             return Err(refuse(
                 &format!("tags.{key}"),

@@ -86,7 +86,13 @@ impl App {
                 set_by: caller.name(),
                 evaluation: req.evaluation,
             })
-            .await?;
+            .await?
+            .map_err(|gone| {
+                AppError::unprocessable(
+                    format!("model {gone} was deleted while the request was checked"),
+                    Some("model"),
+                )
+            })?;
         self.project(project).await
     }
 }

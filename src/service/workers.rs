@@ -3,7 +3,6 @@
 
 use std::time::Duration;
 
-use time::OffsetDateTime;
 use uuid::Uuid;
 
 use super::App;
@@ -14,6 +13,10 @@ use crate::store::{EvaluationRecord, Page, Status, WorkerRecord};
 /// `GET /v1/workers` lists the workers heard from this recently.
 pub(super) const LISTED_FOR: Duration = Duration::from_secs(600);
 
+/// A worker heard from this recently is alive: workers beat every 2 s at
+/// most, so this allows a few missed beats.
+const LIVE_WITHIN: Duration = Duration::from_secs(10);
+
 impl App {
     /// Workers seen in the last ten minutes, oldest first, one page.
     pub async fn workers_page(
@@ -21,10 +24,7 @@ impl App {
         limit: u32,
         cursor: Option<Uuid>,
     ) -> Result<Page<WorkerRecord>, AppError> {
-        let seen = self
-            .store
-            .workers_seen_since(OffsetDateTime::now_utc() - LISTED_FOR)
-            .await?;
+        let seen = self.store.workers_seen_within(LISTED_FOR).await?;
         let mut items: Vec<WorkerRecord> = seen
             .into_iter()
             .filter(|w| cursor.is_none_or(|c| w.id > c))
@@ -40,10 +40,9 @@ impl App {
         })
     }
 
-    /// Workers alive now: heard from within one lease term.
+    /// Workers alive now.
     pub async fn live_workers(&self) -> Result<Vec<WorkerRecord>, AppError> {
-        let since = OffsetDateTime::now_utc() - self.workers.silent_after();
-        Ok(self.store.workers_seen_since(since).await?)
+        Ok(self.store.workers_seen_within(LIVE_WITHIN).await?)
     }
 
     /// Marks queued evaluations whose `runs_on` no live worker carries

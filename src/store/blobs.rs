@@ -279,15 +279,12 @@ impl Blobs {
         Ok(())
     }
 
-    /// Whether the blob of a stored record is on disk (and in object
-    /// storage, when the blobs live there).
+    /// Whether the blob of a stored record is stored: on disk, or in object
+    /// storage when the blobs live there (a process fetches its copy on use).
     pub async fn exists(&self, kind: BlobKind, sha256: &str) -> Result<bool, StoreError> {
-        if !fs::try_exists(self.path_of(kind, sha256)).await? {
-            return Ok(false);
-        }
         match &self.remote {
             Some(remote) => remote.has(kind, sha256).await,
-            None => Ok(true),
+            None => Ok(fs::try_exists(self.path_of(kind, sha256)).await?),
         }
     }
 

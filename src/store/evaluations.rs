@@ -11,7 +11,7 @@ use uuid::Uuid;
 use super::rows::EvaluationRow;
 use super::{
     CancelOutcome, EvaluationFilter, EvaluationRecord, Lease, MAX_ATTEMPTS, NewEvaluation, Page,
-    Progress, Status, Store, StoreError, page,
+    Progress, Status, Store, StoreError, db_now_ms, page,
 };
 use crate::problem::Problem;
 use crate::report::Report;
@@ -155,11 +155,12 @@ impl Store {
         on_pool!(self, |pool, postgres| {
             let sql = format!(
                 "UPDATE evaluations SET status = 'running', attempts = attempts + 1, claimed_by = $1, \
-             worker_id = $2, lease_expires_ms = $3, started_at = COALESCE(started_at, $4), \
+             worker_id = $2, lease_expires_ms = {} + $3, started_at = COALESCE(started_at, $4), \
              progress_stage = NULL, progress_done = 0, progress_total = 0 \
              WHERE id = (SELECT e.id FROM evaluations e WHERE e.status = 'queued' \
              AND NOT EXISTS (SELECT 1 FROM evaluation_labels l WHERE l.evaluation_id = e.id{foreign}) \
              ORDER BY e.id LIMIT 1{}) AND status = 'queued' RETURNING {}",
+                db_now_ms(postgres),
                 if postgres {
                     " FOR UPDATE SKIP LOCKED"
                 } else {
@@ -172,7 +173,7 @@ impl Store {
             let mut q = sqlx::query_as(sqlx::AssertSqlSafe(sql))
                 .bind(lease.holder())
                 .bind(lease.worker)
-                .bind(lease.until_ms(now))
+                .bind(lease.term_ms())
                 .bind(now);
             for label in &carried {
                 q = q.bind(label);
@@ -185,12 +186,13 @@ impl Store {
     /// Extends a running evaluation's lease; false when `worker` no longer
     /// holds it (it was canceled, or the lease lapsed and went back).
     pub async fn renew(&self, id: Uuid, lease: &Lease) -> Result<bool, StoreError> {
-        on_pool!(self, |pool| {
-            let renewed = sqlx::query(
-                "UPDATE evaluations SET lease_expires_ms = $1 \
-             WHERE id = $2 AND status = 'running' AND claimed_by = $3",
-            )
-            .bind(lease.until_ms(OffsetDateTime::now_utc()))
+        on_pool!(self, |pool, postgres| {
+            let renewed = sqlx::query(sqlx::AssertSqlSafe(format!(
+                "UPDATE evaluations SET lease_expires_ms = {} + $1 \
+                 WHERE id = $2 AND status = 'running' AND claimed_by = $3",
+                db_now_ms(postgres)
+            )))
+            .bind(lease.term_ms())
             .bind(id)
             .bind(lease.holder())
             .execute(pool)
@@ -316,19 +318,27 @@ impl Store {
         })
     }
 
-    /// Puts a running evaluation back in the queue without counting the
-    /// attempt (a graceful shutdown interrupted it, not a crash).
-    pub async fn requeue(&self, id: Uuid, worker: &str) -> Result<(), StoreError> {
+    /// Puts a running evaluation back in the queue: its attempt given back
+    /// when a graceful shutdown interrupted it (not a crash), counted when
+    /// the attempt itself went wrong.
+    pub async fn requeue(
+        &self,
+        id: Uuid,
+        worker: &str,
+        give_attempt_back: bool,
+    ) -> Result<(), StoreError> {
         on_pool!(self, |pool| {
             sqlx::query(
-            "UPDATE evaluations SET status = 'queued', attempts = attempts - 1, claimed_by = NULL, \
-             lease_expires_ms = NULL, progress_stage = NULL, progress_done = 0, progress_total = 0 \
-             WHERE id = $1 AND status = 'running' AND claimed_by = $2",
-        )
-        .bind(id)
-        .bind(worker)
-        .execute(pool)
-        .await?;
+                "UPDATE evaluations SET status = 'queued', attempts = attempts - $3, \
+                 claimed_by = NULL, lease_expires_ms = NULL, progress_stage = NULL, \
+                 progress_done = 0, progress_total = 0 \
+                 WHERE id = $1 AND status = 'running' AND claimed_by = $2",
+            )
+            .bind(id)
+            .bind(worker)
+            .bind(i64::from(give_attempt_back))
+            .execute(pool)
+            .await?;
             Ok(())
         })
     }
@@ -347,59 +357,32 @@ impl Store {
             ),
             None,
         );
-        let now_ms = super::workers::unix_ms(now);
-        on_pool!(self, |pool| {
+        on_pool!(self, |pool, postgres| {
             let mut tx = pool.begin().await?;
-            let failed = sqlx::query(
+            let failed = sqlx::query(sqlx::AssertSqlSafe(format!(
                 "UPDATE evaluations SET status = 'failed', finished_at = $1, error = $2, \
-             claimed_by = NULL, lease_expires_ms = NULL WHERE status = 'running' \
-             AND (lease_expires_ms IS NULL OR lease_expires_ms < $3) AND attempts >= $4",
-            )
+                 claimed_by = NULL, lease_expires_ms = NULL WHERE status = 'running' \
+                 AND (lease_expires_ms IS NULL OR lease_expires_ms < {}) AND attempts >= $3",
+                db_now_ms(postgres)
+            )))
             .bind(now)
             .bind(Json(&problem))
-            .bind(now_ms)
             .bind(MAX_ATTEMPTS as i64)
             .execute(&mut *tx)
             .await?
             .rows_affected();
-            let requeued = sqlx::query(
-            "UPDATE evaluations SET status = 'queued', claimed_by = NULL, lease_expires_ms = NULL, \
-             progress_stage = NULL, progress_done = 0, progress_total = 0 WHERE status = 'running' \
-             AND (lease_expires_ms IS NULL OR lease_expires_ms < $1)",
-        )
-        .bind(now_ms)
-        .execute(&mut *tx)
-        .await?
-        .rows_affected();
+            let requeued = sqlx::query(sqlx::AssertSqlSafe(format!(
+                "UPDATE evaluations SET status = 'queued', claimed_by = NULL, \
+                 lease_expires_ms = NULL, progress_stage = NULL, progress_done = 0, \
+                 progress_total = 0 WHERE status = 'running' \
+                 AND (lease_expires_ms IS NULL OR lease_expires_ms < {})",
+                db_now_ms(postgres)
+            )))
+            .execute(&mut *tx)
+            .await?
+            .rows_affected();
             tx.commit().await?;
             Ok((requeued, failed))
-        })
-    }
-
-    /// The `runs_on` labels of queued evaluations that need any, oldest
-    /// first (to say which wait for labels no live worker carries).
-    pub async fn queued_label_needs(
-        &self,
-    ) -> Result<Vec<(Uuid, crate::labels::Labels)>, StoreError> {
-        on_pool!(self, |pool| {
-            let rows: Vec<(Uuid, String)> = sqlx::query_as(
-                "SELECT l.evaluation_id, l.label FROM evaluation_labels l \
-             JOIN evaluations e ON e.id = l.evaluation_id WHERE e.status = 'queued' \
-             ORDER BY l.evaluation_id, l.label",
-            )
-            .fetch_all(pool)
-            .await?;
-            let mut needs: Vec<(Uuid, crate::labels::Labels)> = Vec::new();
-            for (id, pair) in rows {
-                let (k, v) = pair.split_once('=').unwrap_or((&pair, ""));
-                match needs.last_mut() {
-                    Some((last, labels)) if *last == id => {
-                        labels.insert(k.to_string(), v.to_string());
-                    }
-                    _ => needs.push((id, [(k.to_string(), v.to_string())].into())),
-                }
-            }
-            Ok(needs)
         })
     }
 

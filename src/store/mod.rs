@@ -28,8 +28,9 @@ macro_rules! on_pool {
     };
 }
 
-/// Takes, on PostgreSQL, the lock that creating an evaluation and deleting
-/// a model or set hold while each checks for the other. SQLite needs none:
+/// Takes, on PostgreSQL, the lock that creating an evaluation, setting a
+/// baseline and deleting a model or set hold while each checks for the
+/// other. SQLite needs none:
 /// it runs one writing transaction at a time, and PostgreSQL's default
 /// isolation would let the two pass each other unseen.
 macro_rules! lock_catalog {
@@ -168,7 +169,7 @@ pub use records::{
     NewEvaluation, Page, Progress, Status,
 };
 pub use tokens::{EVERY_PROJECT, Role, TokenRecord, secret_hash};
-pub use workers::{Lease, WorkerRecord};
+pub use workers::{Lease, Process, WorkerRecord};
 
 /// Attempts an evaluation gets before a crash-looping one is failed for good.
 pub const MAX_ATTEMPTS: u32 = 3;
@@ -221,15 +222,17 @@ impl Store {
             sqlx::migrate!("./migrations/sqlite").run(&pool).await?;
             Pool::Sqlite(pool)
         };
-        let blobs = if blobs.starts_with("s3://") {
-            Blobs::open(data_dir, Some(remote::Remote::open(blobs)?)).await?
+        let (blobs, own_folder) = if blobs.starts_with("s3://") {
+            let remote = remote::Remote::open(blobs)?;
+            (Blobs::open(data_dir, Some(remote)).await?, true)
         } else {
-            Blobs::open(Path::new(blobs), None).await?
+            let folder = Path::new(blobs);
+            (Blobs::open(folder, None).await?, folder == data_dir)
         };
-        // Alone on its SQLite file, a starting process owns every upload in
-        // progress; on a shared database another service may be receiving
-        // into the same folder, so only files older than any upload go.
-        let sweep = matches!(pool, Pool::Postgres(_)).then_some(STALE_AFTER);
+        // A starting process owns every upload in progress in its own
+        // (locked) data dir; in a folder it shares, another service may be
+        // receiving, so only files older than any upload go.
+        let sweep = (!own_folder).then_some(STALE_AFTER);
         blobs.sweep_incoming(sweep).await?;
         Ok(Store { pool, blobs })
     }
@@ -244,6 +247,17 @@ impl Store {
 
     pub async fn close(&self) {
         on_pool!(self, |pool| pool.close().await)
+    }
+}
+
+/// The database's clock in Unix milliseconds, as SQL. Leases and
+/// heartbeats are set and compared on this one clock, so that a machine
+/// whose own clock runs ahead cannot take back a healthy worker's claim.
+pub(crate) fn db_now_ms(postgres: bool) -> &'static str {
+    if postgres {
+        "CAST(EXTRACT(EPOCH FROM clock_timestamp()) * 1000 AS BIGINT)"
+    } else {
+        "CAST(unixepoch('subsec') * 1000 AS INTEGER)"
     }
 }
 

@@ -177,22 +177,32 @@ impl Store {
         })
     }
 
-    /// Appends a baseline to its project's history, making it current.
-    pub async fn set_baseline(&self, b: &NewBaseline) -> Result<(), StoreError> {
-        on_pool!(self, |pool| {
-            sqlx::query(
-            "INSERT INTO baselines (project, position, model_id, set_at, set_by, evaluation_id) \
-             VALUES ($1, (SELECT COALESCE(MAX(position), 0) + 1 FROM baselines WHERE project = $1), \
-             $2, $3, $4, $5)",
-        )
-        .bind(&b.project)
-        .bind(b.model)
-        .bind(b.set_at)
-        .bind(&b.set_by)
-        .bind(b.evaluation)
-        .execute(pool)
-        .await?;
-            Ok(())
+    /// Appends a baseline to its project's history, making it current;
+    /// `Err(model)` inside, and nothing stored, when the model was deleted
+    /// meanwhile. The catalog lock orders it with deletions, and on
+    /// PostgreSQL keeps two baselines set at once from taking one position.
+    pub async fn set_baseline(&self, b: &NewBaseline) -> Result<Result<(), Uuid>, StoreError> {
+        on_pool!(self, |pool, postgres| {
+            let mut tx = pool.begin().await?;
+            lock_catalog!(tx, postgres);
+            let inserted = sqlx::query(
+                "INSERT INTO baselines (project, position, model_id, set_at, set_by, evaluation_id) \
+                 SELECT $1, (SELECT COALESCE(MAX(position), 0) + 1 FROM baselines WHERE project = $1), \
+                 $2, $3, $4, $5 WHERE EXISTS (SELECT 1 FROM models WHERE id = $2 AND deleted_at IS NULL)",
+            )
+            .bind(&b.project)
+            .bind(b.model)
+            .bind(b.set_at)
+            .bind(&b.set_by)
+            .bind(b.evaluation)
+            .execute(&mut *tx)
+            .await?
+            .rows_affected();
+            if inserted == 0 {
+                return Ok(Err(b.model));
+            }
+            tx.commit().await?;
+            Ok(Ok(()))
         })
     }
 

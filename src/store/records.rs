@@ -63,7 +63,6 @@ impl DatasetRecord {
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "lowercase")]
-
 pub enum Status {
     Queued,
     Running,

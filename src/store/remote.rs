@@ -79,8 +79,16 @@ impl Remote {
         let mut source = tokio::fs::File::open(file).await?;
         let mut sink =
             object_store::buffered::BufWriter::new(self.objects.clone(), self.key(kind, sha256));
-        tokio::io::copy(&mut source, &mut sink).await?;
-        sink.shutdown().await?;
+        let copied = async {
+            tokio::io::copy(&mut source, &mut sink).await?;
+            sink.shutdown().await
+        }
+        .await;
+        if let Err(e) = copied {
+            // No half-written parts left behind in the bucket.
+            let _ = sink.abort().await;
+            return Err(e.into());
+        }
         Ok(())
     }
 

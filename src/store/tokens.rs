@@ -12,7 +12,6 @@ use super::{Store, StoreError};
 /// What a token may do, each role including the ones before it (api.md, "Access").
 #[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Serialize, Deserialize)]
 #[serde(rename_all = "lowercase")]
-
 pub enum Role {
     /// Every read.
     Reader,

@@ -1,8 +1,9 @@
 //! Workers as the queue knows them: each process that runs evaluations
 //! reports itself here and renews its heartbeat; a claim is a lease that
 //! its holder renews, and one that lapses goes back to the queue
-//! (`Store::reclaim_lapsed`). Times compared in SQL are Unix milliseconds:
-//! both databases compare integers exactly.
+//! (`Store::reclaim_lapsed`). Lease ends and heartbeats are Unix
+//! milliseconds on the database's clock (`db_now_ms`): integers compare
+//! exactly on both databases, and one clock serves every machine.
 
 use std::time::Duration;
 
@@ -11,7 +12,7 @@ use sqlx::types::Json;
 use time::OffsetDateTime;
 use uuid::Uuid;
 
-use super::{Store, StoreError};
+use super::{Store, StoreError, db_now_ms};
 use crate::labels::Labels;
 
 /// What a worker claims with: who it is, the labels it carries, and how
@@ -29,14 +30,9 @@ impl Lease {
         self.worker.to_string()
     }
 
-    /// The lease's end if taken or renewed at `now`.
-    pub fn until_ms(&self, now: OffsetDateTime) -> i64 {
-        unix_ms(now) + self.term.as_millis() as i64
+    pub(super) fn term_ms(&self) -> i64 {
+        self.term.as_millis() as i64
     }
-}
-
-pub(super) fn unix_ms(t: OffsetDateTime) -> i64 {
-    (t.unix_timestamp_nanos() / 1_000_000) as i64
 }
 
 fn from_unix_ms(ms: i64) -> OffsetDateTime {
@@ -53,12 +49,19 @@ pub struct WorkerRecord {
     pub labels: Labels,
     #[serde(with = "time::serde::rfc3339")]
     pub started_at: OffsetDateTime,
+    /// Its last heartbeat, on the database's clock.
     #[serde(with = "time::serde::rfc3339")]
     pub heartbeat_at: OffsetDateTime,
     /// The evaluation it runs now.
     pub evaluation: Option<Uuid>,
-    /// Its process id on `hostname`.
-    #[serde(skip)]
+}
+
+/// Who a worker is on its machine: the process id, and the machine and
+/// process namespace it is valid in (boot id and pid namespace: two
+/// containers may share a hostname, never both of these).
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Process {
+    pub host_key: String,
     pub pid: u32,
 }
 
@@ -71,7 +74,6 @@ struct WorkerRow {
     started_at: OffsetDateTime,
     heartbeat_ms: i64,
     evaluation_id: Option<Uuid>,
-    pid: i64,
 }
 
 impl From<WorkerRow> for WorkerRecord {
@@ -84,46 +86,51 @@ impl From<WorkerRow> for WorkerRecord {
             started_at: r.started_at,
             heartbeat_at: from_unix_ms(r.heartbeat_ms),
             evaluation: r.evaluation_id,
-            pid: r.pid as u32,
         }
     }
 }
 
 impl Store {
-    /// Records a worker that starts, its heartbeat set to its start.
-    pub async fn register_worker(&self, w: &WorkerRecord) -> Result<(), StoreError> {
-        on_pool!(self, |pool| {
-            sqlx::query(
+    /// Records a worker that starts, its heartbeat now.
+    pub async fn register_worker(
+        &self,
+        w: &WorkerRecord,
+        process: &Process,
+    ) -> Result<(), StoreError> {
+        on_pool!(self, |pool, postgres| {
+            sqlx::query(sqlx::AssertSqlSafe(format!(
                 "INSERT INTO workers (id, hostname, cpu, labels, started_at, heartbeat_ms, \
-                 evaluation_id, pid) VALUES ($1, $2, $3, $4, $5, $6, NULL, $7)",
-            )
+                 evaluation_id, pid, host_key) VALUES ($1, $2, $3, $4, $5, {}, NULL, $6, $7)",
+                db_now_ms(postgres)
+            )))
             .bind(w.id)
             .bind(&w.hostname)
             .bind(&w.cpu)
             .bind(Json(&w.labels))
             .bind(w.started_at)
-            .bind(unix_ms(w.heartbeat_at))
-            .bind(i64::from(w.pid))
+            .bind(i64::from(process.pid))
+            .bind(&process.host_key)
             .execute(pool)
             .await?;
             Ok(())
         })
     }
 
-    /// A worker's heartbeat: alive at `at`, running `evaluation`.
+    /// A worker's heartbeat: alive now, running `evaluation`.
     pub async fn worker_heartbeat(
         &self,
         id: Uuid,
-        at: OffsetDateTime,
         evaluation: Option<Uuid>,
     ) -> Result<(), StoreError> {
-        on_pool!(self, |pool| {
-            sqlx::query("UPDATE workers SET heartbeat_ms = $1, evaluation_id = $2 WHERE id = $3")
-                .bind(unix_ms(at))
-                .bind(evaluation)
-                .bind(id)
-                .execute(pool)
-                .await?;
+        on_pool!(self, |pool, postgres| {
+            sqlx::query(sqlx::AssertSqlSafe(format!(
+                "UPDATE workers SET heartbeat_ms = {}, evaluation_id = $1 WHERE id = $2",
+                db_now_ms(postgres)
+            )))
+            .bind(evaluation)
+            .bind(id)
+            .execute(pool)
+            .await?;
             Ok(())
         })
     }
@@ -139,48 +146,52 @@ impl Store {
         })
     }
 
-    /// Workers whose last heartbeat is at or after `since`, oldest first.
-    pub async fn workers_seen_since(
+    /// Workers heard from within `window`, oldest first.
+    pub async fn workers_seen_within(
         &self,
-        since: OffsetDateTime,
+        window: Duration,
     ) -> Result<Vec<WorkerRecord>, StoreError> {
-        on_pool!(self, |pool| {
-            let rows: Vec<WorkerRow> = sqlx::query_as(
-                "SELECT id, hostname, cpu, labels, started_at, heartbeat_ms, evaluation_id, pid \
-                 FROM workers WHERE heartbeat_ms >= $1 ORDER BY id",
-            )
-            .bind(unix_ms(since))
+        on_pool!(self, |pool, postgres| {
+            let rows: Vec<WorkerRow> = sqlx::query_as(sqlx::AssertSqlSafe(format!(
+                "SELECT id, hostname, cpu, labels, started_at, heartbeat_ms, evaluation_id \
+                 FROM workers WHERE heartbeat_ms >= {} - $1 ORDER BY id",
+                db_now_ms(postgres)
+            )))
+            .bind(window.as_millis() as i64)
             .fetch_all(pool)
             .await?;
             Ok(rows.into_iter().map(WorkerRecord::from).collect())
         })
     }
 
-    /// Forgets workers not heard from since `before` (killed ones leave no
-    /// goodbye); returns how many.
-    pub async fn forget_workers_before(&self, before: OffsetDateTime) -> Result<u64, StoreError> {
-        on_pool!(self, |pool| {
-            Ok(sqlx::query("DELETE FROM workers WHERE heartbeat_ms < $1")
-                .bind(unix_ms(before))
-                .execute(pool)
-                .await?
-                .rows_affected())
+    /// Forgets workers not heard from within `window` (killed ones leave
+    /// no goodbye); returns how many.
+    pub async fn forget_workers_silent_for(&self, window: Duration) -> Result<u64, StoreError> {
+        on_pool!(self, |pool, postgres| {
+            Ok(sqlx::query(sqlx::AssertSqlSafe(format!(
+                "DELETE FROM workers WHERE heartbeat_ms < {} - $1",
+                db_now_ms(postgres)
+            )))
+            .bind(window.as_millis() as i64)
+            .execute(pool)
+            .await?
+            .rows_affected())
         })
     }
 
-    /// Ends at once the leases of workers on `hostname` whose process is
-    /// gone (`gone(pid)`): a dead process renews nothing, so its claims
-    /// need not wait out their term. Their rows are forgotten. Returns how
-    /// many workers were found gone.
+    /// Ends at once the leases of workers of this machine and process
+    /// namespace whose process is gone (`gone(pid)`): a dead process renews
+    /// nothing, so its claims need not wait out their term. Their rows are
+    /// forgotten. Returns how many workers were found gone.
     pub async fn end_leases_of_gone_workers(
         &self,
-        hostname: &str,
+        host_key: &str,
         gone: impl Fn(u32) -> bool,
     ) -> Result<u64, StoreError> {
         on_pool!(self, |pool| {
             let rows: Vec<(Uuid, i64)> =
-                sqlx::query_as("SELECT id, pid FROM workers WHERE hostname = $1")
-                    .bind(hostname)
+                sqlx::query_as("SELECT id, pid FROM workers WHERE host_key = $1")
+                    .bind(host_key)
                     .fetch_all(pool)
                     .await?;
             let mut ended = 0;

@@ -18,7 +18,7 @@ use crate::worker::{Shared, Worker};
 
 const LONG: Duration = Duration::from_secs(180);
 /// Short leases, so that a killed worker's claim lapses within the test.
-const LEASE: [&str; 2] = ["--lease-seconds", "2"];
+const LEASE: [&str; 2] = ["--lease-seconds", "4"];
 
 /// The prefix of this test's blobs in the bucket.
 const PREFIX: &str = "team-a";
@@ -300,7 +300,7 @@ async fn an_evaluation_that_asks_for_labels_waits_saying_so_until_a_worker_carri
         ] {
             assert!(!w[field].is_null(), "{field} missing: {w}");
         }
-        assert!(w.get("evaluation").is_some(), "{w}");
+        assert!(w.as_object().unwrap().contains_key("evaluation"), "{w}");
     }
 }
 
@@ -386,13 +386,20 @@ async fn blobs_in_object_storage_are_stored_once_per_content_and_leave_with_thei
     let first = c.api.upload_model(&file, "narrow").await;
     assert_eq!(first.status, 201, "{}", first.body);
     let sha = first.body["sha256"].as_str().unwrap().to_string();
-    assert_eq!(c.s3.objects(PREFIX, "models"), [sha.clone()]);
-    // The same bytes through another service: the stored record, no new object.
+    assert_eq!(c.s3.objects(PREFIX, "models"), [sha.as_str()]);
+    let written = c.s3.modified(PREFIX, "models", &sha);
+    // The same bytes through another service: the stored record, the object
+    // left as it was.
     let other = Cluster::service(&c.dir, &c.shared, "api-2");
     let again = other.upload_model(&file, "narrow again").await;
     assert_eq!(again.status, 200, "{}", again.body);
     assert_eq!(again.body["id"], first.body["id"]);
-    assert_eq!(c.s3.objects(PREFIX, "models"), [sha.clone()]);
+    assert_eq!(c.s3.objects(PREFIX, "models"), [sha.as_str()]);
+    assert_eq!(
+        c.s3.modified(PREFIX, "models", &sha),
+        written,
+        "not written again"
+    );
     let set = c
         .api
         .upload_dataset(&case_dir("mlp").join("data.npz"), "frames")

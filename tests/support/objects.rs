@@ -92,6 +92,18 @@ impl S3Server {
         format!("s3://{BUCKET}/{prefix}")
     }
 
+    /// When the server last wrote an object's file.
+    pub fn modified(&self, prefix: &str, kind: &str, name: &str) -> std::time::SystemTime {
+        let path = self
+            .root
+            .path()
+            .join(BUCKET)
+            .join(prefix)
+            .join(kind)
+            .join(name);
+        std::fs::metadata(path).unwrap().modified().unwrap()
+    }
+
     /// The objects under a prefix and kind folder, as the server keeps them.
     pub fn objects(&self, prefix: &str, kind: &str) -> Vec<String> {
         let dir = self.root.path().join(BUCKET).join(prefix).join(kind);

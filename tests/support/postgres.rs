@@ -25,7 +25,19 @@ fn cluster() -> &'static str {
             "starting PostgreSQL failed (.ci/postgres start target/pg-test):\n{}",
             String::from_utf8_lossy(&out.stderr)
         );
-        String::from_utf8(out.stdout).unwrap().trim().to_string()
+        let url = String::from_utf8(out.stdout).unwrap().trim().to_string();
+        // Databases an earlier run of the tests left on this cluster.
+        let stale = query(
+            &url,
+            "SELECT datname FROM pg_database WHERE datname LIKE 'proctor_test_%'",
+        );
+        for name in stale.lines() {
+            query(
+                &url,
+                &format!("DROP DATABASE IF EXISTS {name} WITH (FORCE)"),
+            );
+        }
+        url
     })
 }
 
