@@ -24,6 +24,17 @@ fn on_postgres(extra: &[&str]) -> (Server, String, tempfile::TempDir) {
     (s, url, dir)
 }
 
+/// A response's body as text, byte for byte.
+async fn body_text(s: &Server, path: &str) -> String {
+    s.request(reqwest::Method::GET, path)
+        .send()
+        .await
+        .unwrap()
+        .text()
+        .await
+        .unwrap()
+}
+
 struct Baseline {
     teacher: String,
     production: String,
@@ -133,17 +144,7 @@ async fn the_report_is_served_byte_for_byte_as_stored_with_its_keys_in_order() {
         json!({"teacher": u.teacher, "students": [u.wide], "dataset": u.set}),
     )
     .await;
-    let served = s
-        .request(
-            reqwest::Method::GET,
-            &format!("/v1/evaluations/{id}/report"),
-        )
-        .send()
-        .await
-        .unwrap()
-        .text()
-        .await
-        .unwrap();
+    let served = body_text(&s, &format!("/v1/evaluations/{id}/report")).await;
     let stored = query(
         &url,
         &format!("SELECT body FROM reports WHERE evaluation_id = '{id}'"),
@@ -221,27 +222,13 @@ async fn lists_filter_and_page_the_same_way_on_postgresql() {
     // The dashboard reads the same rows.
     let page = s.get("/").await;
     assert_eq!(page.status, 200);
-    let html = s
-        .request(reqwest::Method::GET, "/")
-        .send()
-        .await
-        .unwrap()
-        .text()
-        .await
-        .unwrap();
+    let html = body_text(&s, "/").await;
     for id in &made {
         assert!(html.contains(id.as_str()), "the list page lacks {id}");
     }
     let teacher = s.get(&format!("/teachers/{}", u.teacher)).await;
     assert_eq!(teacher.status, 200);
-    let metrics = s
-        .request(reqwest::Method::GET, "/metrics")
-        .send()
-        .await
-        .unwrap()
-        .text()
-        .await
-        .unwrap();
+    let metrics = body_text(&s, "/metrics").await;
     assert!(
         metrics
             .lines()
