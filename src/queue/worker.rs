@@ -20,7 +20,8 @@ use crate::labels::Labels;
 use crate::problem::Problem;
 use crate::sandbox::{Sandbox, SandboxError};
 use crate::store::{
-    EvaluationRecord, Lease, Process, Progress, Status, Store, StoreError, WorkerRecord,
+    EvaluationRecord, Lease, Process, Progress, Status, Store, StoreError, WorkSignals,
+    WorkerRecord,
 };
 use crate::telemetry::Telemetry;
 
@@ -169,6 +170,11 @@ impl Workers {
             handles: Mutex::new(Vec::new()),
             setup,
         });
+        if inner.setup.slots > 0
+            && let Some(signals) = inner.store.work_signals().await?
+        {
+            handles_of(&inner).push(tokio::spawn(relay_signals(inner.clone(), signals)));
+        }
         // Registered before they start, so that a caller who sees this
         // return sees the workers listed.
         let mut handles = Vec::with_capacity(inner.setup.slots);
@@ -194,7 +200,7 @@ impl Workers {
                 .await?;
             handles.push(tokio::spawn(worker(inner.clone(), lease)));
         }
-        *inner.handles.lock().unwrap_or_else(|p| p.into_inner()) = handles;
+        handles_of(&inner).extend(handles);
         Ok(Workers { inner })
     }
 
@@ -232,6 +238,27 @@ impl Inner {
     /// still holds a usable map.
     fn running(&self) -> std::sync::MutexGuard<'_, HashMap<Uuid, CancellationToken>> {
         self.running.lock().unwrap_or_else(|p| p.into_inner())
+    }
+}
+
+fn handles_of(inner: &Inner) -> std::sync::MutexGuard<'_, Vec<JoinHandle<()>>> {
+    inner.handles.lock().unwrap_or_else(|p| p.into_inner())
+}
+
+/// Wakes an idle worker of this process whenever another process queues
+/// an evaluation; the poll remains for whatever a signal misses.
+async fn relay_signals(inner: Arc<Inner>, mut signals: WorkSignals) {
+    loop {
+        tokio::select! {
+            got = signals.next() => match got {
+                Ok(()) => inner.wake.notify_one(),
+                Err(e) => {
+                    tracing::warn!(error = %e, "listening for queued work failed");
+                    tokio::time::sleep(Duration::from_secs(1)).await;
+                }
+            },
+            _ = inner.shutdown.cancelled() => return,
+        }
     }
 }
 

@@ -93,6 +93,13 @@ impl Store {
             if let Some((gone,)) = deleted {
                 return Ok(Err(gone));
             }
+            if postgres {
+                // Delivered at commit, to idle workers of every process.
+                sqlx::query("SELECT pg_notify($1, '')")
+                    .bind(super::workers::QUEUE_CHANNEL)
+                    .execute(&mut *tx)
+                    .await?;
+            }
             tx.commit().await?;
             let record = self.evaluation(e.id).await?.ok_or_else(|| {
                 StoreError::Corrupt(format!("evaluation {} vanished after insert", e.id))

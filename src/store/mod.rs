@@ -169,7 +169,7 @@ pub use records::{
     NewEvaluation, Page, Progress, Status,
 };
 pub use tokens::{EVERY_PROJECT, Role, TokenRecord, secret_hash};
-pub use workers::{Lease, Process, WorkerRecord};
+pub use workers::{Lease, Process, WorkSignals, WorkerRecord};
 
 /// Attempts an evaluation gets before a crash-looping one is failed for good.
 pub const MAX_ATTEMPTS: u32 = 3;

@@ -217,4 +217,32 @@ impl Store {
             Ok(ended)
         })
     }
+
+    /// Signals that another process queued work, on PostgreSQL (`None` on
+    /// SQLite, where only this process queues: its own wake suffices).
+    /// Idle workers elsewhere then claim at once instead of at their next poll.
+    pub async fn work_signals(&self) -> Result<Option<WorkSignals>, StoreError> {
+        match &self.pool {
+            super::Pool::Postgres(pool) => {
+                let mut listener = sqlx::postgres::PgListener::connect_with(pool).await?;
+                listener.listen(QUEUE_CHANNEL).await?;
+                Ok(Some(WorkSignals(listener)))
+            }
+            super::Pool::Sqlite(_) => Ok(None),
+        }
+    }
+}
+
+/// The PostgreSQL channel a newly queued evaluation is announced on.
+pub(super) const QUEUE_CHANNEL: &str = "proctor_queue";
+
+/// A PostgreSQL listener on `QUEUE_CHANNEL`.
+pub struct WorkSignals(sqlx::postgres::PgListener);
+
+impl WorkSignals {
+    /// Waits for the next announcement (reconnecting if the connection drops).
+    pub async fn next(&mut self) -> Result<(), StoreError> {
+        self.0.recv().await?;
+        Ok(())
+    }
 }
