@@ -417,9 +417,15 @@ async fn execute(
             store.finish_failed(id, owner, &p).await?;
             return Ok(());
         }
-        Err(e) => {
+        Err(e) if record.attempts < crate::store::MAX_ATTEMPTS => {
             tracing::error!(error = %e, "preparing the evaluation failed; it goes back to the queue");
             store.requeue(id, owner, false).await?;
+            return Ok(());
+        }
+        Err(e) => {
+            tracing::error!(error = %e, "preparing the evaluation failed on its last attempt");
+            let p = AppError::from(e).problem();
+            store.finish_failed(id, owner, &p).await?;
             return Ok(());
         }
     };
