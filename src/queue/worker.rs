@@ -71,28 +71,28 @@ struct Host {
 
 impl Host {
     fn this_one() -> Host {
-        let read = |path: &str| {
-            std::fs::read_to_string(path)
-                .map_or_else(|_| "unknown".into(), |t| t.trim().to_string())
-        };
         let namespace = std::fs::read_link("/proc/self/ns/pid")
             .map_or_else(|_| "unknown".into(), |p| p.display().to_string());
         Host {
-            hostname: hostname(),
+            hostname: proc_text("/proc/sys/kernel/hostname"),
             cpu: crate::engine::environment::cpu_model(),
             process: Process {
-                host_key: format!("{} {namespace}", read("/proc/sys/kernel/random/boot_id")),
+                host_key: format!(
+                    "{} {namespace}",
+                    proc_text("/proc/sys/kernel/random/boot_id")
+                ),
                 pid: std::process::id(),
             },
         }
     }
 }
 
-fn hostname() -> String {
-    std::fs::read_to_string("/proc/sys/kernel/hostname")
-        .map(|h| h.trim().to_string())
+/// A one-line file of /proc, or "unknown".
+fn proc_text(path: &str) -> String {
+    std::fs::read_to_string(path)
+        .map(|t| t.trim().to_string())
         .ok()
-        .filter(|h| !h.is_empty())
+        .filter(|t| !t.is_empty())
         .unwrap_or_else(|| "unknown".into())
 }
 

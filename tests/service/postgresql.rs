@@ -9,6 +9,7 @@ use serde_json::{Value, json};
 
 use crate::harness::Server;
 use crate::postgres::{fresh_database, query};
+use crate::projects::upload;
 use crate::scaleout::figures;
 use crate::support::case_dir;
 
@@ -33,25 +34,6 @@ async fn body_text(s: &Server, path: &str) -> String {
         .text()
         .await
         .unwrap()
-}
-
-struct Baseline {
-    teacher: String,
-    production: String,
-    wide: String,
-    lean: String,
-    set: String,
-}
-
-async fn upload(s: &Server) -> Baseline {
-    let m = |f: &str| case_dir("baseline").join(format!("{f}.onnx"));
-    Baseline {
-        teacher: s.model_id(&m("teacher")).await,
-        production: s.model_id(&m("production")).await,
-        wide: s.model_id(&m("candidate_wide")).await,
-        lean: s.model_id(&m("candidate_lean")).await,
-        set: s.dataset_id(&case_dir("baseline").join("data.npz")).await,
-    }
 }
 
 async fn finished(s: &Server, body: Value) -> (String, Value) {
@@ -271,8 +253,29 @@ async fn a_model_in_use_stays_and_a_deleted_one_comes_back_under_its_id_on_postg
         u.wide.as_str(),
         "revived under its old id"
     );
-    let stored = s.get("/metrics").await;
-    assert_eq!(stored.status, 200);
+    // Stored bytes (a SUM PostgreSQL returns as NUMERIC) count every live file.
+    let files = [
+        "teacher.onnx",
+        "production.onnx",
+        "candidate_wide.onnx",
+        "candidate_lean.onnx",
+        "data.npz",
+    ];
+    let want: u64 = files
+        .iter()
+        .map(|f| {
+            std::fs::metadata(case_dir("baseline").join(f))
+                .unwrap()
+                .len()
+        })
+        .sum();
+    let metrics = body_text(&s, "/metrics").await;
+    assert!(
+        metrics
+            .lines()
+            .any(|l| l == format!("proctor_stored_bytes {want}")),
+        "want {want} stored bytes:\n{metrics}"
+    );
 }
 
 #[tokio::test]

@@ -10,15 +10,16 @@ use crate::support::case_dir;
 
 const LONG: Duration = Duration::from_secs(120);
 
-struct Uploaded {
-    teacher: String,
-    production: String,
-    wide: String,
-    lean: String,
-    set: String,
+/// The baseline case's files, uploaded (shared with the PostgreSQL tests).
+pub(crate) struct Uploaded {
+    pub(crate) teacher: String,
+    pub(crate) production: String,
+    pub(crate) wide: String,
+    pub(crate) lean: String,
+    pub(crate) set: String,
 }
 
-async fn upload(s: &Server) -> Uploaded {
+pub(crate) async fn upload(s: &Server) -> Uploaded {
     let m = |f: &str| case_dir("baseline").join(format!("{f}.onnx"));
     Uploaded {
         teacher: s.model_id(&m("teacher")).await,

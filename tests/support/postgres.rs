@@ -45,17 +45,7 @@ fn cluster() -> &'static str {
 pub fn fresh_database() -> String {
     let base = cluster();
     let name = format!("proctor_test_{}", uuid::Uuid::now_v7().simple());
-    let out = Command::new("psql")
-        .arg(base)
-        .args(["-v", "ON_ERROR_STOP=1", "-qc"])
-        .arg(format!("CREATE DATABASE {name}"))
-        .output()
-        .expect("running psql");
-    assert!(
-        out.status.success(),
-        "creating a database: {}",
-        String::from_utf8_lossy(&out.stderr)
-    );
+    query(base, &format!("CREATE DATABASE {name}"));
     let (server, _) = base.rsplit_once('/').unwrap();
     format!("{server}/{name}")
 }
