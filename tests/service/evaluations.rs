@@ -5,7 +5,7 @@ use std::time::Duration;
 use serde_json::{Value, json};
 
 use crate::harness::Server;
-use crate::support::{ENGINES_F32, assert_matches, case_dir, expected};
+use crate::support::{ENGINES_F32, assert_matches, case_dir, expected, page_ids};
 
 const LONG: Duration = Duration::from_secs(120);
 
@@ -88,34 +88,27 @@ async fn lists_filter_by_project_teacher_and_status() {
         .to_string();
     s.wait_finished(&a, LONG).await;
     s.wait_finished(&b, LONG).await;
-    let ids = |v: &Value| -> Vec<String> {
-        v["items"]
-            .as_array()
-            .unwrap()
-            .iter()
-            .map(|e| e["id"].as_str().unwrap().to_string())
-            .collect()
-    };
     assert_eq!(
-        ids(&s.get("/v1/evaluations").await.body),
+        page_ids(&s.get("/v1/evaluations").await.body),
         vec![b.clone(), a.clone()],
         "newest first"
     );
     assert_eq!(
-        ids(&s.get("/v1/evaluations?project=alpha").await.body),
+        page_ids(&s.get("/v1/evaluations?project=alpha").await.body),
         vec![a.clone()]
     );
     assert_eq!(
-        ids(&s
-            .get(&format!(
+        page_ids(
+            &s.get(&format!(
                 "/v1/evaluations?teacher={teacher}&status=succeeded"
             ))
             .await
-            .body)
+            .body
+        )
         .len(),
         2
     );
-    assert!(ids(&s.get("/v1/evaluations?status=running").await.body).is_empty());
+    assert!(page_ids(&s.get("/v1/evaluations?status=running").await.body).is_empty());
 }
 
 #[tokio::test]

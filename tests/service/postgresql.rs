@@ -11,7 +11,7 @@ use crate::harness::Server;
 use crate::postgres::{fresh_database, query};
 use crate::projects::upload;
 use crate::scaleout::figures;
-use crate::support::case_dir;
+use crate::support::{case_dir, page_ids};
 
 const LONG: Duration = Duration::from_secs(180);
 
@@ -149,33 +149,25 @@ async fn lists_filter_and_page_the_same_way_on_postgresql() {
         .await;
         made.push(id);
     }
-    let ids = |v: &Value| -> Vec<String> {
-        v["items"]
-            .as_array()
-            .unwrap()
-            .iter()
-            .map(|e| e["id"].as_str().unwrap().to_string())
-            .collect()
-    };
     let newest_first: Vec<String> = made.iter().rev().cloned().collect();
-    assert_eq!(ids(&s.get("/v1/evaluations").await.body), newest_first);
+    assert_eq!(page_ids(&s.get("/v1/evaluations").await.body), newest_first);
     assert_eq!(
-        ids(&s.get("/v1/evaluations?project=alpha").await.body),
+        page_ids(&s.get("/v1/evaluations?project=alpha").await.body),
         [made[1].clone(), made[0].clone()]
     );
     assert_eq!(
-        ids(&s.get("/v1/evaluations?tag=branch:main").await.body),
+        page_ids(&s.get("/v1/evaluations?tag=branch:main").await.body),
         [made[2].clone(), made[0].clone()]
     );
-    assert!(ids(&s.get("/v1/evaluations?status=queued").await.body).is_empty());
+    assert!(page_ids(&s.get("/v1/evaluations?status=queued").await.body).is_empty());
     let first = s.get("/v1/evaluations?limit=2").await.body;
-    assert_eq!(ids(&first), newest_first[..2]);
+    assert_eq!(page_ids(&first), newest_first[..2]);
     let cursor = first["next_cursor"].as_str().unwrap();
     let second = s
         .get(&format!("/v1/evaluations?limit=2&cursor={cursor}"))
         .await
         .body;
-    assert_eq!(ids(&second), newest_first[2..]);
+    assert_eq!(page_ids(&second), newest_first[2..]);
     assert!(second["next_cursor"].is_null());
 
     let models = s.get("/v1/models?limit=3").await.body;

@@ -34,6 +34,16 @@ pub fn reference_dir() -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/reference/cases")
 }
 
+/// The ids of one page of a list answer (`{items: [{id, ...}], next_cursor}`), in order.
+pub fn page_ids(page: &Value) -> Vec<String> {
+    page["items"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|e| e["id"].as_str().unwrap().to_string())
+        .collect()
+}
+
 pub fn case_dir(case: &str) -> PathBuf {
     reference_dir().join(case)
 }
