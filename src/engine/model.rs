@@ -361,6 +361,31 @@ impl Plan {
         names
     }
 
+    /// How the plan computes each convolution: the names of the engine's
+    /// convolution ops with their counts, such as `LazyIm2col×3`. Which one
+    /// runs decides much of a CNN's speed, and it can differ between the
+    /// batch-1 and the bulk plan.
+    pub fn convolution_ops(&self) -> Vec<String> {
+        const CONV_OPS: [&str; 5] = [
+            "Im2col",
+            "LazyIm2col",
+            "DepthWiseConv",
+            "DirectSpatialConv",
+            "BlockedConv",
+        ];
+        let mut counts = std::collections::BTreeMap::<String, usize>::new();
+        for node in self.runnable.model().nodes() {
+            let name = node.op().name();
+            if CONV_OPS.contains(&name.as_ref()) {
+                *counts.entry(name.to_string()).or_default() += 1;
+            }
+        }
+        counts
+            .into_iter()
+            .map(|(op, n)| format!("{op}×{n}"))
+            .collect()
+    }
+
     /// Runs the plan once on a full batch of inputs.
     pub fn run(&self, inputs: TVec<TValue>) -> EngineResult<Tensor> {
         let mut out = guarded("the engine failed while running the model", || {

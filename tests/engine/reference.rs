@@ -30,6 +30,25 @@ fn ort_scores(case: &str, stem: &str) -> Scores {
     Scores::from_rows(shape[1], data)
 }
 
+/// Asserts tract's output is onnxruntime's within float32 engine noise, row
+/// by row and element by element; returns the largest difference and where.
+fn assert_same_as_onnxruntime(what: &str, got: &Scores, want: &Scores) -> (f64, usize) {
+    assert_eq!((got.n, got.c), (want.n, want.c), "{what}: shape");
+    let (mut worst, mut at) = (0.0f64, 0);
+    for (i, (g, w)) in got.data.iter().zip(&want.data).enumerate() {
+        assert!(
+            ENGINES_F32.accepts(*g, *w),
+            "{what}: row {} element {}: tract {g}, onnxruntime {w}",
+            i / got.c,
+            i % got.c
+        );
+        if (g - w).abs() > worst {
+            (worst, at) = ((g - w).abs(), i);
+        }
+    }
+    (worst, at)
+}
+
 #[test]
 fn tract_reproduces_onnxruntime_outputs_for_every_reference_model() {
     for case in CASES {
@@ -39,22 +58,33 @@ fn tract_reproduces_onnxruntime_outputs_for_every_reference_model() {
             let path = dir.join(info["file"].as_str().unwrap());
             let got = model_scores(&path, &dir.join("data.npz"), 32, None)
                 .unwrap_or_else(|e| panic!("{case}/{stem}: {e}"));
-            let want = ort_scores(case, &stem);
-            assert_eq!((got.n, got.c), (want.n, want.c), "{case}/{stem}: shape");
-            let (mut worst, mut at) = (0.0f64, 0);
-            for (i, (g, w)) in got.data.iter().zip(&want.data).enumerate() {
-                assert!(
-                    ENGINES_F32.accepts(*g, *w),
-                    "{case}/{stem}: sample {} class {}: tract {g}, onnxruntime {w}",
-                    i / got.c,
-                    i % got.c
-                );
-                if (g - w).abs() > worst {
-                    (worst, at) = ((g - w).abs(), i);
-                }
-            }
+            let (worst, at) = assert_same_as_onnxruntime(
+                &format!("{case}/{stem}"),
+                &got,
+                &ort_scores(case, &stem),
+            );
             eprintln!("{case}/{stem}: max |tract - onnxruntime| = {worst:e} at element {at}");
         }
+    }
+}
+
+/// Grouped, strided and dilated, 5×5 and depthwise convolutions over 45
+/// images: one bulk batch of 32 and a short one of 13. All but the depthwise
+/// one (tract's own op) gather their patches lazily at every position of a
+/// batch, the vendored tract-core change (vendor/README.md).
+#[test]
+fn batched_convolutions_of_every_layout_match_onnxruntime_element_by_element() {
+    let case = "conv_layouts";
+    let dir = case_dir(case);
+    for (stem, info) in models(&expected(case)) {
+        let got = model_scores(
+            &dir.join(info["file"].as_str().unwrap()),
+            &dir.join(info["data"].as_str().unwrap()),
+            32,
+            None,
+        )
+        .unwrap_or_else(|e| panic!("{case}/{stem}: {e}"));
+        assert_same_as_onnxruntime(&format!("{case}/{stem}"), &got, &ort_scores(case, &stem));
     }
 }
 

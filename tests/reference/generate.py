@@ -1417,6 +1417,52 @@ def case_timing(seed=21):
         f.write("\n")
 
 
+# Convolutions of several layouts, each run over a set larger than one bulk batch
+# (32 images), so that images 2 to 32 of a batch and a last short batch go through
+# every im2col path of the engine. The whole output is compared, element by element.
+CONV_LAYOUTS = {
+    # stem: (input [C, H, W], output channels, Conv attributes)
+    "grouped": ((8, 12, 10), 8, dict(kernel_shape=[3, 3], pads=[1, 1, 1, 1], group=4)),
+    "strided_dilated": ((3, 13, 11), 6, dict(kernel_shape=[3, 3], strides=[2, 2], dilations=[2, 2],
+                                             pads=[2, 1, 0, 1])),
+    "wide_kernel": ((4, 9, 9), 5, dict(kernel_shape=[5, 5], pads=[2, 2, 2, 2])),
+    "depthwise": ((6, 10, 10), 6, dict(kernel_shape=[3, 3], pads=[1, 1, 1, 1], group=6)),
+}
+
+
+def case_conv_layouts(seed=41, n=45):
+    folder = os.path.join(CASES, "conv_layouts")
+    os.makedirs(os.path.join(folder, "ort"))
+    rng = np.random.default_rng(seed)
+    models = {}
+    for stem, ((c, h, w), out_c, attrs) in CONV_LAYOUTS.items():
+        kh, kw = attrs["kernel_shape"]
+        g = Graph()
+        weight = small(rng, out_c, c // attrs.get("group", 1), kh, kw, scale=0.3)
+        x = g.op("Conv", ["image", g.w("conv.weight", weight), g.w("conv.bias", small(rng, out_c))], **attrs)
+        g.op("Flatten", [x], out="features", axis=1)
+        mb = g.model(stem, [("image", TensorProto.FLOAT, ["batch", c, h, w])],
+                     [("features", TensorProto.FLOAT, ["batch", "width"])])
+        image = rng.normal(size=(n, c, h, w)).astype(np.float32)
+        out = run(mb, {"image": image})
+        path = os.path.join(folder, f"{stem}.onnx")
+        with open(path, "wb") as f:
+            f.write(mb)
+        save_npz(os.path.join(folder, f"{stem}.npz"), {"image": image})
+        np.save(os.path.join(folder, "ort", f"{stem}.npy"), out)
+        models[stem] = {"file": f"{stem}.onnx", "data": f"{stem}.npz", "input": [c, h, w],
+                        "conv": {k: v for k, v in attrs.items()}, "output": list(out.shape)}
+    doc = {
+        "case": "conv_layouts",
+        "samples": n,
+        "models": models,
+        "sources": {"ort/*.npy": SOURCES["ort/*.npy"]},
+    }
+    with open(os.path.join(folder, "expected.json"), "w") as f:
+        json.dump(doc, f, indent=1, allow_nan=False)
+        f.write("\n")
+
+
 # --------------------------------------------------------------------------
 
 def main():
@@ -1479,6 +1525,7 @@ def main():
 
     case_bad(os.path.join(CASES, "mlp", "teacher.onnx"))
     case_timing()
+    case_conv_layouts()
 
     print(f"numpy {np.__version__}, scipy {scipy.__version__}, statsmodels {statsmodels.__version__}, "
           f"onnx {onnx.__version__}, onnxruntime {ort.__version__}")

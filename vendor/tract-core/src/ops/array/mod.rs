@@ -1,0 +1,38 @@
+/// # Operators on array and shapes
+mod broadcast;
+pub(crate) mod concat;
+mod cumsum;
+pub mod dyn_slice;
+mod gather;
+mod gather_elements;
+mod gather_nd;
+mod one_hot;
+mod pad;
+mod range;
+mod reshape;
+mod scatter_elements;
+mod scatter_nd;
+mod slice;
+pub mod strided_slice;
+mod tile;
+mod topk;
+mod trilu;
+
+pub use self::broadcast::MultiBroadcastTo;
+pub use self::concat::TypedConcat;
+pub use self::cumsum::CumSum;
+pub use self::dyn_slice::DynSlice;
+pub use self::gather::Gather;
+pub use self::gather_elements::GatherElements;
+pub use self::gather_nd::GatherNd;
+pub use self::one_hot::OneHot;
+pub use self::pad::{Pad, PadMode};
+pub use self::range::Range;
+pub use self::reshape::FiniteReshape;
+pub use self::scatter_elements::ScatterElements;
+pub use self::scatter_nd::{ScatterNd, ScatterReduction};
+pub use self::slice::Slice;
+pub use self::strided_slice::StridedSlice;
+pub use self::tile::{DynTile, Tile};
+pub use self::topk::Topk;
+pub use self::trilu::Trilu;
