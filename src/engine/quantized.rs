@@ -7,7 +7,12 @@
 //! DQ(int32 bias) → Conv → Q, into the standard QLinearConv, which tract runs
 //! on integer kernels; an integer runtime does the same rewrite. What cannot
 //! be folded is named in the model's notes, since its latency then reflects
-//! float emulation.
+//! float emulation. For those, the DequantizeLinear of each quantized weight
+//! is computed once, when the model is loaded: tract would compute it again
+//! at every call, and pack the float weights again at every call, which made
+//! a QDQ MLP 15 times slower than its float original. tract's own integer
+//! matrix product (QLinearMatMul, MatMulInteger) was slower still on this
+//! project's machine, so MatMul and Gemm are not rewritten into it.
 
 use std::collections::{BTreeMap, HashMap, HashSet};
 
@@ -242,12 +247,100 @@ fn fold_one(
     Some((node, q_ix))
 }
 
-/// Rewrites QDQ convolutions of the main graph into QLinearConv, then drops
-/// DequantizeLinear nodes that nothing reads any more.
+/// The float initializer a DequantizeLinear of initializers computes, as
+/// the operator defines it per element: `(x - zero_point) * scale`, in
+/// float32, per tensor or along `axis`. `None` for any other form (blocked
+/// scales, float16 scales, a value the graph puts out).
+fn dequantized_initializer(ix: &Index<'_>, n: &pb::NodeProto) -> Option<pb::TensorProto> {
+    use pb::tensor_proto::DataType as D;
+    if n.op_type != "DequantizeLinear" || !n.domain.is_empty() || n.output.len() != 1 {
+        return None;
+    }
+    let out = n.output[0].as_str();
+    if ix.outputs.contains(out) || attr_int(n, "block_size").is_some_and(|b| b != 0) {
+        return None;
+    }
+    let x = ix.initializers.get(n.input.first()?.as_str())?;
+    if ![D::Int8, D::Uint8, D::Int32]
+        .map(|d| d as i32)
+        .contains(&x.data_type)
+    {
+        return None;
+    }
+    let values = ix.ints(&x.name)?;
+    let scale = ix.floats(n.input.get(1)?)?;
+    let zero = match n.input.get(2).filter(|z| !z.is_empty()) {
+        Some(z) => ix.ints(z)?,
+        None => vec![0],
+    };
+    let dims: Vec<usize> = x
+        .dims
+        .iter()
+        .map(|&d| usize::try_from(d).ok())
+        .collect::<Option<_>>()?;
+    if values.len() != dims.iter().product::<usize>() {
+        return None;
+    }
+    // Per-axis: one scale (and zero point) per index along `axis`.
+    let (channels, inner) = if scale.len() == 1 && zero.len() == 1 {
+        (1, 1)
+    } else {
+        let rank = dims.len() as i64;
+        let axis = attr_int(n, "axis").unwrap_or(1);
+        let axis = usize::try_from(if axis < 0 { axis + rank } else { axis }).ok()?;
+        let channels = *dims.get(axis)?;
+        if scale.len() != channels || (zero.len() != 1 && zero.len() != channels) {
+            return None;
+        }
+        (channels, dims[axis + 1..].iter().product::<usize>())
+    };
+    fn at<T: Copy>(v: &[T], c: usize) -> T {
+        if v.len() == 1 { v[0] } else { v[c] }
+    }
+    let mut raw = Vec::with_capacity(values.len() * 4);
+    for (i, &q) in values.iter().enumerate() {
+        let c = (i / inner) % channels;
+        let y = (q - at(&zero, c)) as f32 * at(&scale, c);
+        raw.extend_from_slice(&y.to_le_bytes());
+    }
+    Some(pb::TensorProto {
+        name: out.to_string(),
+        dims: x.dims.clone(),
+        data_type: D::Float as i32,
+        raw_data: raw,
+        ..Default::default()
+    })
+}
+
+/// Rewrites QDQ convolutions of the main graph into QLinearConv, computes
+/// the DequantizeLinear of initializers once, then drops DequantizeLinear
+/// nodes that nothing reads any more.
 pub fn fold(model: &mut pb::ModelProto) {
     let Some(g) = model.graph.as_mut() else {
         return;
     };
+    fold_convolutions(g);
+    let folded: Vec<(usize, pb::TensorProto)> = {
+        let ix = Index::of(g);
+        g.node
+            .iter()
+            .enumerate()
+            .filter_map(|(i, n)| Some((i, dequantized_initializer(&ix, n)?)))
+            .collect()
+    };
+    let mut drop: HashSet<usize> = HashSet::new();
+    for (i, tensor) in folded {
+        drop.insert(i);
+        g.initializer.push(tensor);
+    }
+    let mut ix = 0;
+    g.node.retain(|_| {
+        ix += 1;
+        !drop.contains(&(ix - 1))
+    });
+}
+
+fn fold_convolutions(g: &mut pb::GraphProto) {
     let mut replaced: Vec<(usize, pb::NodeProto, usize)> = Vec::new();
     {
         let ix = Index::of(g);
@@ -311,7 +404,100 @@ pub fn notes(model: &pb::ModelProto) -> Vec<String> {
     vec![format!(
         "its latency reflects float emulation: {} quantized in the QDQ format run as float \
          arithmetic between DequantizeLinear and QuantizeLinear, which an integer runtime would \
-         run on integer kernels (the engine folds only QDQ Conv with an int32 bias)",
+         run on integer kernels (the engine runs only QDQ Conv with an int32 bias on integer \
+         kernels; it dequantizes the weights of the others once, when it loads the model)",
         listed.join(", ")
     )]
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use pb::tensor_proto::DataType as D;
+
+    fn tensor(name: &str, dt: D, dims: &[i64], raw: Vec<u8>) -> pb::TensorProto {
+        pb::TensorProto {
+            name: name.into(),
+            dims: dims.to_vec(),
+            data_type: dt as i32,
+            raw_data: raw,
+            ..Default::default()
+        }
+    }
+
+    fn floats(v: &[f32]) -> Vec<u8> {
+        v.iter().flat_map(|f| f.to_le_bytes()).collect()
+    }
+
+    /// One DequantizeLinear of initializers, folded; the initializer it becomes.
+    fn folded(inits: Vec<pb::TensorProto>, inputs: &[&str], axis: Option<i64>) -> Vec<f32> {
+        let node = pb::NodeProto {
+            input: inputs.iter().map(|s| s.to_string()).collect(),
+            output: vec!["y".into()],
+            op_type: "DequantizeLinear".into(),
+            attribute: axis
+                .map(|a| pb::AttributeProto {
+                    name: "axis".into(),
+                    i: a,
+                    ..Default::default()
+                })
+                .into_iter()
+                .collect(),
+            ..Default::default()
+        };
+        let g = pb::GraphProto {
+            node: vec![node],
+            initializer: inits,
+            ..Default::default()
+        };
+        let ix = Index::of(&g);
+        float_data(&dequantized_initializer(&ix, &g.node[0]).unwrap()).unwrap()
+    }
+
+    #[test]
+    fn a_per_tensor_dequantize_is_the_operators_example() {
+        // The example of DequantizeLinear in the ONNX operator documentation
+        // (from memory): x = [0, 3, 128, 255], scale 2, zero point 128.
+        let got = folded(
+            vec![
+                tensor("x", D::Uint8, &[4], vec![0, 3, 128, 255]),
+                tensor("s", D::Float, &[], floats(&[2.0])),
+                tensor("z", D::Uint8, &[], vec![128]),
+            ],
+            &["x", "s", "z"],
+            None,
+        );
+        assert_eq!(got, [-256.0, -250.0, 0.0, 254.0]);
+    }
+
+    #[test]
+    fn a_per_axis_dequantize_scales_each_index_along_its_axis() {
+        // [2, 3] int8 along axis 1 (a MatMul weight's output columns) and
+        // along axis -2 (its rows); (x - zero point) * scale per the ONNX
+        // definition of DequantizeLinear.
+        let x = || {
+            tensor(
+                "x",
+                D::Int8,
+                &[2, 3],
+                [1i8, -2, 3, 4, 5, -6].map(|v| v as u8).to_vec(),
+            )
+        };
+        let cols = folded(
+            vec![
+                x(),
+                tensor("s", D::Float, &[3], floats(&[0.5, 0.25, 2.0])),
+                tensor("z", D::Int8, &[3], vec![0, 1, 255]),
+            ],
+            &["x", "s", "z"],
+            Some(1),
+        );
+        assert_eq!(cols, [0.5, -0.75, 8.0, 2.0, 1.0, -10.0]);
+        let rows = folded(
+            vec![x(), tensor("s", D::Float, &[2], floats(&[0.5, 2.0]))],
+            &["x", "s"],
+            Some(-2),
+        );
+        assert_eq!(rows, [0.5, -1.0, 1.5, 8.0, 10.0, -12.0]);
+    }
 }
