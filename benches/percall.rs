@@ -24,6 +24,9 @@ use proctor::engine::model::{Dim, Model, TensorSpec};
 use proctor::engine::stats::nearest_rank;
 use tract_onnx::prelude::*;
 
+#[path = "support/inputs.rs"]
+mod inputs;
+
 fn sample(spec: &TensorSpec, batch: usize, seed: &mut u64) -> Tensor {
     let shape: Vec<usize> = spec
         .shape
@@ -35,25 +38,13 @@ fn sample(spec: &TensorSpec, batch: usize, seed: &mut u64) -> Tensor {
             Dim::Symbol(s) => panic!("input {} has a free axis {s}", spec.name),
         })
         .collect();
-    let len: usize = shape.iter().product();
-    match spec.dtype.as_str() {
-        "float32" => {
-            let values: Vec<f32> = (0..len)
-                .map(|_| {
-                    *seed ^= *seed << 13;
-                    *seed ^= *seed >> 7;
-                    *seed ^= *seed << 17;
-                    (*seed >> 40) as f32 / (1u64 << 24) as f32 - 0.5
-                })
-                .collect();
-            tract_ndarray::ArrayD::from_shape_vec(shape, values)
-                .unwrap()
-                .into()
-        }
-        "int64" => tract_ndarray::ArrayD::from_elem(shape, 1i64).into(),
-        "int32" => tract_ndarray::ArrayD::from_elem(shape, 1i32).into(),
+    let dt = match spec.dtype.as_str() {
+        "float32" => f32::datum_type(),
+        "int64" => i64::datum_type(),
+        "int32" => i32::datum_type(),
         other => panic!("input {} has dtype {other}", spec.name),
-    }
+    };
+    inputs::filled(shape, dt, seed)
 }
 
 fn main() {
@@ -78,7 +69,7 @@ fn main() {
         "usage: percall MODEL.onnx … [--calls N]"
     );
 
-    let mut seed = 0x2545F4914F6CDD1Du64;
+    let mut seed = inputs::SEED;
     let mut loaded = Vec::new();
     for path in &models {
         let started = Instant::now();

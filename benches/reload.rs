@@ -7,7 +7,8 @@
 //! cargo bench --bench reload -- MODEL.onnx [MODEL.onnx …] [--batch B] [--repeat N]
 //! ```
 //!
-//! For each model, in seconds (the median of `--repeat` runs, default 5):
+//! For each model, in seconds (the median of `--repeat` runs, default 5,
+//! by nearest rank):
 //! - `proctor_load`: `Model::load` as an evaluation runs it (decode, checks,
 //!   QDQ folding, typing, decluttering);
 //! - `typed`: tract alone, from the file to a decluttered typed model;
@@ -27,6 +28,7 @@ use std::path::{Path, PathBuf};
 use std::time::Instant;
 
 use proctor::engine::model::Model;
+use proctor::engine::stats::nearest_rank;
 use tract_nnef::framework::Nnef;
 use tract_onnx::WithOnnx;
 use tract_onnx::prelude::*;
@@ -41,7 +43,10 @@ fn timed<T>(repeat: usize, mut f: impl FnMut() -> T) -> (f64, T) {
         times.push(started.elapsed().as_secs_f64());
     }
     times.sort_by(f64::total_cmp);
-    (times[times.len() / 2], last.expect("repeat is at least 1"))
+    (
+        nearest_rank(&times, 50),
+        last.expect("repeat is at least 1"),
+    )
 }
 
 fn typed_from_onnx(path: &Path) -> TypedModel {
@@ -69,10 +74,13 @@ fn plan(typed: &TypedModel, batch: usize) -> Arc<TypedSimplePlan> {
         .expect("the model plans")
 }
 
-/// Pseudo-random floats in [-0.5, 0.5), ones for integer inputs.
+#[path = "support/inputs.rs"]
+mod inputs;
+
+/// One batch for the plan's concrete input facts (see `inputs::filled`).
 fn inputs(plan: &Arc<TypedSimplePlan>) -> TVec<TValue> {
     let model = plan.model();
-    let mut seed = 0x2545F4914F6CDD1Du64;
+    let mut seed = inputs::SEED;
     model
         .input_outlets()
         .expect("inputs")
@@ -80,26 +88,7 @@ fn inputs(plan: &Arc<TypedSimplePlan>) -> TVec<TValue> {
         .map(|outlet| {
             let fact = model.outlet_fact(*outlet).expect("input fact");
             let shape = fact.shape.as_concrete().expect("concrete").to_vec();
-            let len: usize = shape.iter().product();
-            let tensor = if fact.datum_type == f32::datum_type() {
-                let values: Vec<f32> = (0..len)
-                    .map(|_| {
-                        seed ^= seed << 13;
-                        seed ^= seed >> 7;
-                        seed ^= seed << 17;
-                        (seed >> 40) as f32 / (1u64 << 24) as f32 - 0.5
-                    })
-                    .collect();
-                tract_ndarray::ArrayD::from_shape_vec(shape, values)
-                    .unwrap()
-                    .into()
-            } else {
-                Tensor::from(tract_ndarray::ArrayD::from_elem(shape, 1i64))
-                    .cast_to_dt(fact.datum_type)
-                    .unwrap()
-                    .into_owned()
-            };
-            tensor.into_tvalue()
+            inputs::filled(shape, fact.datum_type, &mut seed).into_tvalue()
         })
         .collect()
 }
